@@ -1,0 +1,116 @@
+"""Units at the edges: the one pint registry, `name [unit]` headers, and conversion to and from SI.
+
+Everything inside the package is SI (K, Pa, m³, kg, mol, s, J/mol). This module is the only place that knows a
+unit spelling. Each column accepts units of one dimension only and, within it, only units whose size is plausible
+for the column, because pint happily reads some lab spellings as something else (``C`` is the coulomb, ``Ml`` the
+megalitre, ``bar(g)`` bar times gram).
+"""
+
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass
+from functools import lru_cache
+
+import pint
+
+REGISTRY = pint.UnitRegistry(autoconvert_offset_to_baseunit=True)
+# pint 0.25 cannot parse "wt%" or "wt. %"; a mass fraction in percent is what the lab means by it.
+REGISTRY.define("wt_percent = 0.01 = wtpct")
+
+_HEADER = re.compile(r"^\s*(?P<name>[^\[\]]*?)\s*(?:\[(?P<unit>[^\[\]]*)\])?\s*$")
+
+# Lab spellings rewritten before pint sees them. Order matters: "wt. %" before "%".
+_SPELLINGS = (
+    (re.compile(r"wt\.?\s*%"), "wt_percent"),
+    (re.compile(r"%"), "percent"),
+    (re.compile(r"℃"), "degC"),
+    (re.compile(r"µ|μ"), "u"),
+)
+
+# A unit whose size differs from the column's reference unit by more than this factor is almost surely a
+# misreading (Ml for mL is 1e9) rather than a real choice (min for s is 60, kg for mg is 1e6).
+_PLAUSIBLE_FACTOR = 1e7
+
+
+class UnitProblem(ValueError):
+    """A unit spelling that cannot be used for a column; the message says why."""
+
+
+@dataclass(frozen=True)
+class Header:
+    """A parsed column header ``name [unit]``; ``unit`` is ``None`` when the header has no brackets."""
+
+    name: str
+    unit: str | None
+
+
+def parse_header(text: str) -> Header:
+    """Split ``"time [min]"`` into ``Header("time", "min")``; a header without brackets has no unit."""
+    match = _HEADER.match(text.replace("\ufeff", ""))
+    if match is None:
+        return Header(text.strip(), None)
+    unit = match.group("unit")
+    return Header(match.group("name").strip(), unit.strip() if unit is not None else None)
+
+
+def _normalise(spelling: str) -> str:
+    out = spelling.strip()
+    for pattern, replacement in _SPELLINGS:
+        out = pattern.sub(replacement, out)
+    return out
+
+
+@lru_cache(maxsize=512)
+def parse_unit(spelling: str) -> pint.Unit:
+    """Parse a unit spelling with the project registry; raise :class:`UnitProblem` if pint cannot."""
+    try:
+        unit = REGISTRY.Unit(_normalise(spelling))
+    except Exception as exc:  # pint raises several unrelated types for bad spellings
+        raise UnitProblem(f"'{spelling}' is not a unit pint can read") from exc
+    return unit
+
+
+@lru_cache(maxsize=512)
+def si_converter(spelling: str, reference: str) -> tuple[float, float, str]:
+    """Return ``(scale, shift, understood)`` so that ``si = value * scale + shift``.
+
+    ``reference`` is the column's reference unit (e.g. ``"mL"`` for a volume column); the spelling must have the
+    same dimension and a plausible size relative to it. ``understood`` is pint's full name of the unit, shown to
+    the user so a misreading is visible.
+
+    Raises
+    ------
+    UnitProblem
+        Unreadable unit, wrong dimension, or implausible size.
+    """
+    unit = parse_unit(spelling)
+    ref = parse_unit(reference)
+    if unit.dimensionality != ref.dimensionality:
+        raise UnitProblem(
+            f"'{spelling}' is read as {unit} ({_dimension_words(unit)}), but this column needs "
+            f"{_dimension_words(ref)} such as {reference}"
+        )
+    si_unit = REGISTRY.Quantity(1.0, ref).to_base_units().units
+    zero = REGISTRY.Quantity(0.0, unit).to(si_unit).magnitude
+    one = REGISTRY.Quantity(1.0, unit).to(si_unit).magnitude
+    scale = one - zero
+    ref_scale = REGISTRY.Quantity(1.0, ref).to(si_unit).magnitude - REGISTRY.Quantity(0.0, ref).to(si_unit).magnitude
+    ratio = abs(scale / ref_scale)
+    if not (1 / _PLAUSIBLE_FACTOR <= ratio <= _PLAUSIBLE_FACTOR):
+        raise UnitProblem(
+            f"'{spelling}' is read as {unit}, {ratio:.3g} times {reference}; that is implausible for this column "
+            "(check the letter case of the prefix)"
+        )
+    return float(scale), float(zero), str(unit)
+
+
+def from_si(values, reference: str):
+    """Convert SI values (numpy array or scalar) back to the display unit ``reference``."""
+    scale, shift, _ = si_converter(reference, reference)
+    return (values - shift) / scale
+
+
+def _dimension_words(unit: pint.Unit) -> str:
+    dim = str(unit.dimensionality)
+    return "a dimensionless number" if dim == "dimensionless" else f"dimension {dim}"
