@@ -385,7 +385,7 @@ def _stage_traces(
     stage.execute(
         """
         CREATE TABLE typed AS
-        SELECT rowid + 2 AS line, trim(trial_id) AS trial_id, time AS time_text, value AS value_text,
+        SELECT rowid + 2 AS line, trim(trial_id) AS trial_id, coalesce(time, '') AS time_text, coalesce(value, '') AS value_text,
                TRY_CAST(time AS DOUBLE) AS time_num, TRY_CAST(value AS DOUBLE) AS value_num
         FROM raw
         """

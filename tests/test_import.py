@@ -1,0 +1,332 @@
+"""Import: round trip, every bad-input case, all-or-nothing, re-import without duplicates, units to SI.
+
+Every store test uses a real DuckDB file in tmp_path.
+"""
+
+from __future__ import annotations
+
+import re
+from pathlib import Path
+
+import duckdb
+import numpy as np
+import pandas as pd
+import periodictable
+import pytest
+from scipy import constants
+
+from catalog import store
+from catalog.campaign import read_source
+from catalog.cli import main
+from catalog.errors import ValidationError
+from catalog.units import si_converter
+
+CATALYSTS = """catalyst_id,metal,metal_loading [wt%],dispersion [%],site_density [umol/g],surface_area [m^2/g],support
+PdC-A,Pd,5,25,,900,carbon
+RuAl-B,Ru,1.5,40,,180,alumina
+CoSi-C,Co,10,,35,250,silica
+"""
+TRIALS = """trial_id,catalyst_id,temperature [degC],measurement,signal_unit,catalyst_mass [mg],limiting_amount [mmol],product_ratio,gas_molar_mass [g/mol],headspace_volume [mL],liquid_volume [mL],operator,started_at
+R1,PdC-A,30,gas_volume,mL,12.5,0.8,3,,,,ana,2026-10-01T09:00
+R2,RuAl-B,40,mass_loss,g,20,0.8,3,2.016,,,ben,2026-10-01T11:00
+R3,CoSi-C,50,pressure,kPa,15,0.8,3,,60,,ana,
+R4,,50,concentration,mmol/L,,0.8,1,,,25,ben,
+"""
+
+
+def _trace_rows() -> str:
+    rows = ["trial_id,time [s],value"]
+    t = np.arange(0, 600, 60.0)
+    for trial, base, span in (("R1", 1.2, 20.0), ("R2", 31.4, -0.004), ("R3", 101.3, 8.0), ("R4", 0.0, 30.0)):
+        for ti in t:
+            rows.append(f"{trial},{ti:g},{base + span * (1 - np.exp(-ti / 200)):.6f}")
+    return "\n".join(rows) + "\n"
+
+
+def write_campaign(folder: Path, catalysts=CATALYSTS, trials=TRIALS, traces=None) -> Path:
+    folder.mkdir(parents=True, exist_ok=True)
+    (folder / "catalysts.csv").write_text(catalysts, encoding="utf-8")
+    (folder / "trials.csv").write_text(trials, encoding="utf-8")
+    (folder / "traces.csv").write_text(traces if traces is not None else _trace_rows(), encoding="utf-8")
+    return folder
+
+
+@pytest.fixture
+def campaign(tmp_path) -> Path:
+    return write_campaign(tmp_path / "camp")
+
+
+@pytest.fixture
+def db(tmp_path) -> Path:
+    return tmp_path / "store.duckdb"
+
+
+def snapshot(db: Path) -> dict[str, pd.DataFrame]:
+    if not db.exists():
+        return {}
+    con = duckdb.connect(str(db), read_only=True)
+    try:
+        return {t: con.execute(f"SELECT * FROM {t} ORDER BY ALL").df() for t in ("imports", "catalysts", "trials", "trace_points")}
+    finally:
+        con.close()
+
+
+def test_round_trip_counts_and_si(campaign, db):
+    report = store.import_campaign(db, read_source(campaign))
+    assert (report.n_catalysts, report.n_trials, report.n_points) == (3, 4, 40)
+    tables = snapshot(db)
+    trials = tables["trials"].set_index("trial_id")
+    assert trials.loc["R1", "temperature"] == pytest.approx(303.15)  # ITS-90 offset 273.15 K (definition of °C)
+    assert trials.loc["R1", "catalyst_mass"] == pytest.approx(12.5e-6)
+    assert trials.loc["R2", "gas_molar_mass"] == pytest.approx(2.016e-3)
+    assert trials.loc["R3", "headspace_volume"] == pytest.approx(60e-6)
+    assert pd.isna(trials.loc["R4", "catalyst_id"])  # blank
+    cats = tables["catalysts"].set_index("catalyst_id")
+    assert cats.loc["PdC-A", "metal_loading"] == pytest.approx(0.05)
+    assert cats.loc["CoSi-C", "site_density"] == pytest.approx(35e-3)  # 35 umol/g = 0.035 mol/kg
+    assert cats.loc["PdC-A", "surface_area"] == pytest.approx(900e3)
+    points = tables["trace_points"]
+    r3 = points[points.trial_id == "R3"].sort_values("t")
+    assert r3["value"].iloc[0] == pytest.approx(101300.0)  # kPa -> Pa
+    imports = tables["imports"]
+    assert len(imports) == 1 and len(imports.loc[0, "content_hash"]) == 64
+
+
+def test_cli_import_twice_does_not_duplicate(campaign, db, capsys):
+    assert main(["import", str(campaign), "--db", str(db), "--quiet"]) == 0
+    first = snapshot(db)
+    assert main(["import", str(campaign), "--db", str(db), "--quiet"]) == 0
+    out = capsys.readouterr().out
+    assert "nothing written" in out
+    after = snapshot(db)
+    for name in ("catalysts", "trials", "trace_points", "imports"):
+        pd.testing.assert_frame_equal(first[name], after[name])
+
+
+def test_reimport_edited_campaign_skips_identical_rows(campaign, db):
+    store.import_campaign(db, read_source(campaign))
+    (campaign / "trials.csv").write_text(TRIALS + "R5,PdC-A,30,gas_volume,mL,12.5,0.8,3,,,,ana,\n")
+    (campaign / "traces.csv").write_text(_trace_rows() + "R5,0,1.0\nR5,60,2.0\nR5,120,2.5\n")
+    report = store.import_campaign(db, read_source(campaign))
+    assert report.n_trials == 1 and report.n_points == 3
+    assert sorted(report.skipped_trials) == ["R1", "R2", "R3", "R4"]
+    assert len(report.skipped_catalysts) == 3
+    assert len(snapshot(db)["trials"]) == 5
+
+
+def test_reimport_with_changed_values_is_refused_and_keeps_old(campaign, db):
+    store.import_campaign(db, read_source(campaign))
+    before = snapshot(db)
+    write_campaign(campaign, trials=TRIALS.replace("R1,PdC-A,30", "R1,PdC-A,35"))
+    with pytest.raises(ValidationError) as err:
+        store.import_campaign(db, read_source(campaign))
+    assert "'R1' is already stored with different temperature" in str(err.value)
+    pd.testing.assert_frame_equal(before["trials"], snapshot(db)["trials"])
+
+
+def test_hostile_id_is_stored_verbatim(tmp_path, db):
+    evil = "K'); DROP TABLE trials;--"
+    cats = CATALYSTS.replace("PdC-A", f'"{evil}"')
+    trials = TRIALS.replace("PdC-A", f'"{evil}"')
+    folder = write_campaign(tmp_path / "evil", catalysts=cats, trials=trials)
+    store.import_campaign(db, read_source(folder))
+    tables = snapshot(db)
+    assert evil in set(tables["catalysts"]["catalyst_id"])
+    assert len(tables["trials"]) == 4
+
+
+def test_bom_and_crlf_are_valid(tmp_path, db):
+    folder = tmp_path / "crlf"
+    folder.mkdir()
+    for name, text in (("catalysts.csv", CATALYSTS), ("trials.csv", TRIALS), ("traces.csv", _trace_rows())):
+        (folder / name).write_bytes(b"\xef\xbb\xbf" + text.replace("\n", "\r\n").encode())
+    report = store.import_campaign(db, read_source(folder))
+    assert (report.n_catalysts, report.n_trials, report.n_points) == (3, 4, 40)
+
+
+def test_xlsx_workbook_imports_same_rows(campaign, tmp_path, db):
+    book = tmp_path / "camp.xlsx"
+    with pd.ExcelWriter(book, engine="openpyxl") as writer:
+        for sheet in ("catalysts", "trials", "traces"):
+            pd.read_csv(campaign / f"{sheet}.csv", dtype=str, keep_default_na=False).to_excel(writer, sheet_name=sheet, index=False)
+    report = store.import_campaign(db, read_source(book))
+    assert (report.n_catalysts, report.n_trials, report.n_points) == (3, 4, 40)
+
+
+def _replace_cell(text: str, line: int, column: str, value: str) -> str:
+    lines = text.splitlines()
+    header = lines[0].split(",")
+    col = [i for i, h in enumerate(header) if h.split(" [")[0] == column][0]
+    cells = lines[line - 1].split(",")
+    cells[col] = value
+    lines[line - 1] = ",".join(cells)
+    return "\n".join(lines) + "\n"
+
+
+# (file, spreadsheet row, column, new text, expected words in the message)
+BAD_CELLS = [
+    ("trials", 2, "temperature", "warm", "not a finite number"),
+    ("trials", 2, "temperature", "", "required but empty"),
+    ("trials", 3, "temperature", "-300", "absolute zero"),
+    ("trials", 2, "catalyst_mass", "-4", "must be above"),
+    ("trials", 3, "headspace_volume", "-1", "must be above"),
+    ("trials", 2, "limiting_amount", "-0.5", "must be above"),
+    ("catalysts", 2, "dispersion", "140", "above"),
+    ("catalysts", 3, "metal_loading", "-2", "below"),
+    ("trials", 2, "measurement", "colour_change", "not one of"),
+    ("trials", 2, "signal_unit", "kPa", "needs dimension"),
+    ("trials", 2, "signal_unit", "flurbs", "not a unit"),
+    ("trials", 2, "catalyst_id", "NoSuchCat", "neither in the catalysts table nor in the database"),
+    ("trials", 2, "catalyst_mass", "", "needs the catalyst mass"),
+    ("trials", 3, "gas_molar_mass", "", "required for a mass_loss trial"),
+    ("catalysts", 3, "catalyst_id", "PdC-X", "used more than once"),
+    ("trials", 3, "trial_id", "S1", "used more than once"),
+    ("catalysts", 2, "metal", "Xx", "not an element symbol"),
+    ("trials", 2, "started_at", "last tuesday", "ISO 8601"),
+]
+
+
+@pytest.mark.parametrize("file,row,column,value,words", BAD_CELLS)
+def test_bad_cell_is_located_and_changes_nothing(campaign, db, file, row, column, value, words):
+    store.import_campaign(db, read_source(write_campaign(campaign.parent / "base")))  # earlier data must survive
+    before = snapshot(db)
+    texts = {"catalysts": CATALYSTS.replace("PdC-A", "PdC-X").replace("RuAl-B", "RuAl-Y").replace("CoSi-C", "CoSi-Z"),
+             "trials": TRIALS.replace("PdC-A", "PdC-X").replace("RuAl-B", "RuAl-Y").replace("CoSi-C", "CoSi-Z")
+             .replace("R1,", "S1,").replace("R2,", "S2,").replace("R3,", "S3,").replace("R4,", "S4,")}
+    traces = _trace_rows().replace("R", "S")
+    texts[file] = _replace_cell(texts[file], row, column, value)
+    folder = write_campaign(campaign.parent / "bad", texts["catalysts"], texts["trials"], traces)
+    with pytest.raises(ValidationError) as err:
+        store.import_campaign(db, read_source(folder))
+    problems = err.value.problems
+    hit = [p for p in problems if p.file == f"{file}.csv" and p.row == row and words in p.message]
+    assert hit, f"no located problem for {file} row {row} {column}: {[str(p) for p in problems]}"
+    assert column in (hit[0].column or "")
+    after = snapshot(db)
+    for name in before:
+        pd.testing.assert_frame_equal(before[name], after[name])
+
+
+@pytest.mark.parametrize(
+    "edit,row,words",
+    [
+        (lambda t: t.replace("R1,60,", "R1,sixty,", 1), 3, "time 'sixty' is not a finite number"),
+        (lambda t: t.replace("R1,60,", "R1,0,", 1), 3, "does not increase"),
+        (lambda t: t + "R9,0,1.0\n", 42, "not in the trials table"),
+        (lambda t: "\n".join(l for l in t.splitlines() if not l.startswith("R4")) + "\n", 5, "has no trace points"),
+        (lambda t: re.sub(r"^R2,0,.*$", "R2,0,", t, count=1, flags=re.M), 12, "value '' is not a finite number"),
+    ],
+)
+def test_bad_trace_rows_are_located(campaign, db, edit, row, words):
+    write_campaign(campaign, traces=edit(_trace_rows()))
+    with pytest.raises(ValidationError) as err:
+        store.import_campaign(db, read_source(campaign))
+    assert any(p.row == row and words in p.message for p in err.value.problems), [str(p) for p in err.value.problems]
+    assert snapshot(db)["trials"].empty
+
+
+def test_missing_required_column_and_every_problem_at_once(campaign, db):
+    trials = TRIALS.replace("measurement,", "method,")
+    write_campaign(campaign, trials=_replace_cell(trials, 3, "temperature", "hot"))
+    with pytest.raises(ValidationError) as err:
+        store.import_campaign(db, read_source(campaign))
+    text = str(err.value)
+    assert "column 'measurement': required column is missing" in text
+    assert "row 3, column 'temperature [degC]'" in text
+
+
+def test_missing_file_is_reported(tmp_path, db):
+    folder = write_campaign(tmp_path / "c")
+    (folder / "traces.csv").unlink()
+    with pytest.raises(ValidationError, match="traces.csv: file is missing"):
+        read_source(folder)
+
+
+def test_cli_bad_input_exit_code_and_no_traceback(campaign, db, capsys):
+    write_campaign(campaign, trials=_replace_cell(TRIALS, 2, "temperature", "warm"))
+    assert main(["import", str(campaign), "--db", str(db), "--quiet"]) == 2
+    err = capsys.readouterr().err
+    assert "trials.csv, row 2, column 'temperature [degC]'" in err
+    assert "Traceback" not in err
+
+
+def test_cli_missing_folder(db, capsys):
+    assert main(["import", "/nonexistent/folder", "--db", str(db)]) == 2
+    assert "no such folder" in capsys.readouterr().err
+
+
+def test_database_path_from_environment(campaign, tmp_path, monkeypatch):
+    target = tmp_path / "env.duckdb"
+    monkeypatch.setenv("CATALOG_DB", str(target))
+    assert main(["import", str(campaign), "--quiet"]) == 0
+    assert target.exists()
+
+
+def test_second_writer_gets_busy_message(campaign, db):
+    store.import_campaign(db, read_source(campaign))
+    import subprocess
+    import sys
+    import textwrap
+
+    holder = subprocess.Popen(
+        [sys.executable, "-c", textwrap.dedent(f"""
+            import duckdb, sys, time
+            con = duckdb.connect({str(db)!r})
+            print('held', flush=True)
+            time.sleep(30)
+        """)],
+        stdout=subprocess.PIPE, text=True,
+    )
+    try:
+        assert holder.stdout.readline().strip() == "held"
+        with pytest.raises(store.DatabaseBusyError, match="in use by another program"):
+            with store.connect(db, wait=0.5):
+                pass
+    finally:
+        holder.kill()
+        holder.wait()
+
+
+# ----------------------------------------------------------------------------------------- unit conversions
+
+
+def test_molar_mass_header_matches_periodictable():
+    # IUPAC abridged standard atomic weight of H is 1.008 (CIAAW 2013+), as periodictable 2.1 ships it:
+    # M(H2) = 2.016 g/mol, which a `gas_molar_mass [g/mol]` header must turn into 2.016e-3 kg/mol.
+    scale, _, _ = si_converter("g/mol", "g/mol")
+    assert 2 * periodictable.H.mass * scale == pytest.approx(2.016e-3, rel=1e-6)
+
+
+def test_volume_units_against_codata_molar_volume():
+    # CODATA molar volume of an ideal gas at 273.15 K, 101.325 kPa (scipy.constants): 22.413969545 L/mol.
+    vm = constants.physical_constants["molar volume of ideal gas (273.15 K, 101.325 kPa)"][0]  # m^3/mol
+    scale, _, _ = si_converter("L", "mL")
+    assert 22.413969545 * scale == pytest.approx(vm, rel=1e-9)
+
+
+@pytest.mark.parametrize(
+    "spelling,reference,si_of_one",
+    [
+        ("degC", "degC", 274.15),   # definition of the Celsius scale: T/K = t/°C + 273.15
+        ("degF", "degC", 255.9277777777778),  # T/K = (t/°F + 459.67) × 5/9 (NIST SP 811, appendix B)
+        ("bar", "kPa", 1e5),        # 1 bar = 100 kPa exactly (SI brochure, 9th ed., table 8)
+        ("atm", "kPa", 101325.0),   # standard atmosphere, scipy.constants.atm
+        ("torr", "kPa", constants.torr),
+        ("min", "s", 60.0),
+        ("h", "s", 3600.0),
+        ("wt%", "wt%", 0.01),
+        ("umol/g", "umol/g", 1e-3),  # 1 µmol/g = 1e-6 mol / 1e-3 kg
+        ("cm^3", "mL", 1e-6),
+    ],
+)
+def test_header_units_convert_to_si(spelling, reference, si_of_one):
+    scale, shift, _ = si_converter(spelling, reference)
+    assert scale + shift == pytest.approx(si_of_one, rel=1e-12)
+
+
+@pytest.mark.parametrize("spelling,reference", [("C", "degC"), ("Ml", "mL"), ("bar(g)", "kPa")])
+def test_misread_lab_spellings_are_refused(spelling, reference):
+    from catalog.units import UnitProblem
+
+    with pytest.raises(UnitProblem):
+        si_converter(spelling, reference)
