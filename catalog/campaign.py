@@ -93,6 +93,7 @@ TRIAL_COLUMNS = (
     Column("collected_over_water", "bool"),
     Column("effective_diffusivity", unit="m^2/s", lower=0.0, lower_open=True),
     Column("particle_density", unit="g/cm^3", lower=0.0, lower_open=True),
+    Column("mass_transfer_coefficient", unit="m/s", lower=0.0, lower_open=True),
     Column("reaction_enthalpy", unit="kJ/mol"),
     Column("heat_capacity", unit="J/K", lower=0.0, lower_open=True),
 )
