@@ -46,9 +46,24 @@ class Settings:
     ----------
     reference_temperature : float
         K; TOF, enhancement and rates are compared here.
+
+    The remaining attributes are the diagnostic thresholds used by :mod:`catalog.diagnostics`.
     """
 
     reference_temperature: float = 308.15
+    #: Diagnostic thresholds (see catalog.diagnostics for the meaning and source of each).
+    low_ea: float = 20e3
+    weisz_prater_limit: float = 0.3
+    mears_limit: float = 0.15
+    loading_slope_tolerance: float = 0.3
+    replicate_cv_limit: float = 0.2
+    min_enhancement: float = 2.0
+    min_r2: float = 0.98
+    runs_z_limit: float = 3.0
+    late_residual_z_limit: float = -3.0
+    plateau_shortfall: float = 0.85
+    curvature_p_limit: float = 0.01
+    min_temperatures: int = 3
 
     def key(self) -> str:
         """A short stable hash of the settings and the code version."""

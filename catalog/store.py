@@ -111,6 +111,49 @@ CREATE TABLE history (
 );
 """,
     ),
+    (
+        3,
+        "analysis cache: kinetic fits per trial, results per analysis run, flags",
+        """
+CREATE TABLE trial_fits (
+    trial_id VARCHAR PRIMARY KEY, fit_version VARCHAR NOT NULL,
+    model VARCHAR, r0 DOUBLE, r0_se DOUBLE, k DOUBLE, k_se DOUBLE, k_unit VARCHAR, half_life DOUBLE, "offset" DOUBLE,
+    plateau DOUBLE, plateau_se DOUBLE, n_max DOUBLE, plateau_ratio DOUBLE, final_amount DOUBLE,
+    final_conversion DOUBLE, r2 DOUBLE, rmse DOUBLE, n_points INTEGER, late_residual_z DOUBLE, runs_z DOUBLE,
+    aic_zero DOUBLE, aic_first DOUBLE, aic_second DOUBLE
+);
+CREATE TABLE analysis_runs (
+    run_key VARCHAR PRIMARY KEY, settings VARCHAR, data_stamp VARCHAR, code_version VARCHAR, created_at TIMESTAMP,
+    blank_ea DOUBLE, blank_ea_low DOUBLE, blank_ea_high DOUBLE, blank_ln_a DOUBLE, blank_t_min DOUBLE,
+    blank_t_max DOUBLE, blank_n INTEGER
+);
+CREATE TABLE trial_results (
+    run_key VARCHAR NOT NULL, trial_id VARCHAR NOT NULL,
+    rate DOUBLE, rate_se DOUBLE, blank_rate DOUBLE, blank_extrapolated BOOLEAN, enhancement DOUBLE,
+    enhancement_low DOUBLE, enhancement_high DOUBLE, sites DOUBLE, site_basis VARCHAR, tof DOUBLE, tof_se DOUBLE,
+    ton DOUBLE, rate_per_mass DOUBLE, rate_per_area DOUBLE, photon_flux DOUBLE, quantum_yield DOUBLE,
+    weisz_prater DOUBLE, mears DOUBLE, adiabatic_rise DOUBLE, hazard_band VARCHAR, pressure_rise_max DOUBLE,
+    flags VARCHAR
+);
+CREATE TABLE catalyst_results (
+    run_key VARCHAR NOT NULL, catalyst_id VARCHAR NOT NULL,
+    n_trials INTEGER, n_temperatures INTEGER, n_arrhenius INTEGER, t_min DOUBLE, t_max DOUBLE, site_basis VARCHAR,
+    models VARCHAR, ea DOUBLE, ea_se DOUBLE, ea_low DOUBLE, ea_high DOUBLE, ln_a DOUBLE, ln_a_low DOUBLE,
+    ln_a_high DOUBLE, dh DOUBLE, dh_low DOUBLE, dh_high DOUBLE, ds DOUBLE, ds_low DOUBLE, ds_high DOUBLE,
+    curvature_p DOUBLE, birge DOUBLE, r2_arrhenius DOUBLE, tof_ref DOUBLE, tof_ref_low DOUBLE, tof_ref_high DOUBLE,
+    tof_ref_extrapolated BOOLEAN, delta_ea_blank DOUBLE, enhancement_ref DOUBLE, enhancement_ref_low DOUBLE,
+    enhancement_ref_high DOUBLE, blank_extrapolated BOOLEAN, rate_per_mass_ref DOUBLE, rate_per_area_ref DOUBLE,
+    ton_max DOUBLE, replicate_cv DOUBLE, "order" DOUBLE, order_low DOUBLE, order_high DOUBLE,
+    order_temperature DOUBLE, median_sites DOUBLE, min_enhancement DOUBLE, max_weisz_prater DOUBLE,
+    max_mears DOUBLE, max_adiabatic_rise DOUBLE, metal VARCHAR, support VARCHAR, metal_loading DOUBLE,
+    dispersion DOUBLE, price_per_gram DOUBLE, description VARCHAR, flags VARCHAR
+);
+CREATE TABLE flags (
+    run_key VARCHAR NOT NULL, scope VARCHAR NOT NULL, record_id VARCHAR NOT NULL, code VARCHAR NOT NULL,
+    severity VARCHAR, message VARCHAR, value DOUBLE, threshold DOUBLE
+);
+""",
+    ),
 )
 
 
@@ -553,3 +596,116 @@ def table_counts(db: str | os.PathLike | None = None) -> dict[str, int]:
             name: con.execute(f"SELECT count(*) FROM {name}").fetchone()[0]
             for name in ("imports", "catalysts", "trials", "trace_points")
         }
+
+
+# --------------------------------------------------------------------------------------------------- analysis cache
+
+_CACHE_TABLES = ("trial_results", "catalyst_results", "flags")
+
+
+def _table_columns(con, table: str) -> list[str]:
+    return [r[0] for r in con.execute(
+        "SELECT column_name FROM information_schema.columns WHERE table_name = ? ORDER BY ordinal_position", [table]
+    ).fetchall()]
+
+
+def _insert_frame(con, table: str, frame: pd.DataFrame) -> None:
+    """Insert the frame's columns that the table has, by name (the cache tables ignore extra columns)."""
+    keep = [c for c in _table_columns(con, table) if c in frame.columns]
+    con.register("cache_rows", frame[keep])
+    quoted = ", ".join(f'"{c}"' for c in keep)
+    con.execute(f"INSERT INTO {table} ({quoted}) SELECT {quoted} FROM cache_rows")
+    con.unregister("cache_rows")
+
+
+def data_stamp(db: str | os.PathLike | None = None) -> str:
+    """A fingerprint of the campaign data: changes with every import, correction, exclusion or purge."""
+    with connect(db, read_only=True) as con:
+        row = con.execute(
+            """
+            SELECT (SELECT coalesce(max(import_id), 0) FROM imports), (SELECT coalesce(max(change_id), 0) FROM history),
+                   (SELECT count(*) FROM trials), (SELECT count(*) FROM catalysts)
+            """
+        ).fetchone()
+    return "i{}-h{}-t{}-c{}".format(*row)
+
+
+def load_campaign(db: str | os.PathLike | None = None) -> tuple[pd.DataFrame, pd.DataFrame, pd.DataFrame]:
+    """Catalysts, trials and trace points in SI, without excluded records (points sorted by trial and time)."""
+    with connect(db, read_only=True) as con:
+        catalysts = con.execute(
+            f"SELECT {', '.join(_CATALYST_FIELDS)} FROM catalysts WHERE NOT excluded ORDER BY catalyst_id").df()
+        trials = con.execute(
+            f"""SELECT {', '.join(_TRIAL_FIELDS)} FROM trials
+                WHERE NOT excluded AND (catalyst_id IS NULL OR catalyst_id NOT IN
+                      (SELECT catalyst_id FROM catalysts WHERE excluded))
+                ORDER BY trial_id""").df()
+        points = con.execute(
+            """SELECT p.trial_id, p.t, p.value FROM trace_points p
+               JOIN trials t USING (trial_id) WHERE NOT t.excluded ORDER BY p.trial_id, p.t""").df()
+    return catalysts, trials, points
+
+
+def load_trace(db: str | os.PathLike | None, trial_id: str) -> pd.DataFrame:
+    """One trial's points (t, value) in SI."""
+    with connect(db, read_only=True) as con:
+        return con.execute("SELECT t, value FROM trace_points WHERE trial_id = ? ORDER BY t", [trial_id]).df()
+
+
+def load_fits(db: str | os.PathLike | None, fit_version: str) -> pd.DataFrame:
+    """Cached kinetic fits made by this fit version, indexed by trial_id."""
+    with connect(db, read_only=True) as con:
+        fits = con.execute("SELECT * EXCLUDE (fit_version) FROM trial_fits WHERE fit_version = ?", [fit_version]).df()
+    return fits.set_index("trial_id")
+
+
+def save_run(db: str | os.PathLike | None, run_key: str, settings_json: str, stamp: str, fits: pd.DataFrame,
+             fit_version: str, blank: dict, trial_results: pd.DataFrame, catalyst_results: pd.DataFrame,
+             flags: pd.DataFrame) -> None:
+    """Store one analysis run (and refresh the per-trial fit cache) in one transaction.
+
+    Older runs are dropped: the cache holds what the current data and recent settings produced, not history.
+    """
+    fits = fits.reset_index().rename(columns={"index": "trial_id"})
+    fits["fit_version"] = fit_version
+    with connect(db) as con, transaction(con):
+        con.register("fresh_fits", fits[["trial_id"]])
+        con.execute("DELETE FROM trial_fits WHERE trial_id IN (SELECT trial_id FROM fresh_fits)")
+        con.unregister("fresh_fits")
+        _insert_frame(con, "trial_fits", fits)
+        stale = [r[0] for r in con.execute(
+            "SELECT run_key FROM analysis_runs WHERE data_stamp <> ? OR run_key = ?", [stamp, run_key]).fetchall()]
+        for table in (*_CACHE_TABLES, "analysis_runs"):
+            con.execute(f"DELETE FROM {table} WHERE run_key IN (SELECT * FROM unnest(?))", [stale or [""]])
+        con.execute(
+            "INSERT INTO analysis_runs VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+            [run_key, settings_json, stamp, fit_version, _now(), *(blank.get(k) for k in (
+                "ea", "ea_low", "ea_high", "ln_a", "t_min", "t_max", "n_points"))],
+        )
+        for table, frame, key in (("trial_results", trial_results, "trial_id"),
+                                  ("catalyst_results", catalyst_results, "catalyst_id")):
+            frame = frame.reset_index().rename(columns={"index": key})
+            frame["run_key"] = run_key
+            _insert_frame(con, table, frame)
+        flags = flags.assign(run_key=run_key)
+        _insert_frame(con, "flags", flags)
+
+
+def load_run(db: str | os.PathLike | None, run_key: str) -> dict | None:
+    """A stored analysis run: its blank summary and the three result tables; None when not cached."""
+    with connect(db, read_only=True) as con:
+        run = con.execute("SELECT * FROM analysis_runs WHERE run_key = ?", [run_key]).df()
+        if run.empty:
+            return None
+        out = {"run": run.iloc[0].to_dict()}
+        # Trial results come back joined to the trial's conditions and kinetic fit: the whole row a page shows.
+        out["trial_results"] = con.execute(
+            """
+            SELECT t.* EXCLUDE (import_id, excluded), f.* EXCLUDE (trial_id, fit_version),
+                   r.* EXCLUDE (run_key, trial_id)
+            FROM trial_results r JOIN trials t USING (trial_id) LEFT JOIN trial_fits f USING (trial_id)
+            WHERE r.run_key = ? ORDER BY t.trial_id
+            """, [run_key]).df()
+        for table in ("catalyst_results", "flags"):
+            out[table] = con.execute(f"SELECT * EXCLUDE (run_key) FROM {table} WHERE run_key = ?", [run_key]).df()
+    return out

@@ -1,0 +1,93 @@
+"""Cached analysis results: the one call the CLI and the app make to get figures for a campaign.
+
+A result set is keyed by the analysis settings, the code version and a fingerprint of the data; when neither the
+data nor the settings changed it is read back from the store (a query, not a recomputation). Otherwise only trials
+without a cached kinetic fit are fitted, the cheap per-trial and per-catalyst figures are recomputed, the
+diagnostics run, and the run is stored.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import os
+from dataclasses import asdict, dataclass
+
+import pandas as pd
+
+from catalog import analysis, diagnostics, store
+
+
+@dataclass(frozen=True)
+class Results:
+    """Figures for one campaign under one set of settings.
+
+    Attributes
+    ----------
+    trials : DataFrame
+        One row per analysed trial (indexed by trial_id): conditions (SI), kinetic fit, derived figures and
+        ``flags`` (semicolon-separated codes).
+    catalysts : DataFrame
+        One row per catalyst (indexed by catalyst_id): Arrhenius/Eyring, figures at the reference temperature,
+        ``flags``.
+    flags : DataFrame
+        Every flag: scope ('trial' or 'catalyst'), record_id, code, severity, message, value, threshold.
+    blank : dict
+        Summary of the blank Arrhenius model (ea, ea_low, ea_high, ln_a, t_min, t_max, n); empty without blanks.
+    """
+
+    trials: pd.DataFrame
+    catalysts: pd.DataFrame
+    flags: pd.DataFrame
+    blank: dict
+    settings: analysis.Settings
+    run_key: str
+    data_stamp: str
+    computed: bool
+
+
+def run_key(settings: analysis.Settings, stamp: str) -> str:
+    """Cache key of a result set: settings, code version and data fingerprint."""
+    return hashlib.sha256(f"{settings.key()}|{stamp}".encode()).hexdigest()[:20]
+
+
+def get_results(db: str | os.PathLike | None, settings: analysis.Settings, progress=None) -> Results:
+    """Results for the campaign in ``db`` under ``settings``, from the cache when it is current."""
+    say = progress or (lambda message: None)
+    stamp = store.data_stamp(db)
+    key = run_key(settings, stamp)
+    cached = store.load_run(db, key)
+    computed = cached is None
+    if computed:
+        say("loading trials")
+        catalysts, trials, points = store.load_campaign(db)
+        fits = store.load_fits(db, analysis.FIT_VERSION)
+        todo = len(set(trials["trial_id"]) - set(fits.index))
+        say(f"fitting {todo} trace(s), reusing {len(trials) - todo} cached fit(s)")
+        result = analysis.analyse(catalysts, trials, points, settings, fits=fits)
+        say("running diagnostics")
+        flags = diagnostics.evaluate(result, settings)
+        trial_table = _with_codes(result.trials, flags, "trial")
+        catalyst_table = _with_codes(result.catalysts, flags, "catalyst")
+        blank = result.blank
+        summary = {} if blank is None else {
+            "ea": blank.ea, "ea_low": blank.ea_low, "ea_high": blank.ea_high, "ln_a": blank.ln_a,
+            "t_min": blank.t_min, "t_max": blank.t_max, "n_points": blank.n_points}
+        say("storing results")
+        fit_columns = list(analysis.TRIAL_FIT_COLUMNS)
+        store.save_run(db, key, json.dumps(asdict(settings), sort_keys=True), stamp,
+                       result.trials[fit_columns], analysis.FIT_VERSION, summary, trial_table, catalyst_table, flags)
+        cached = store.load_run(db, key)
+    run = cached["run"]
+    blank = {} if pd.isna(run.get("blank_ea")) else {
+        k: run[f"blank_{k}"] for k in ("ea", "ea_low", "ea_high", "ln_a", "t_min", "t_max")} | {"n": run["blank_n"]}
+    trials = cached["trial_results"].set_index("trial_id")
+    catalysts = cached["catalyst_results"].set_index("catalyst_id").sort_index()
+    return Results(trials, catalysts, cached["flags"], blank, settings, key, stamp, computed)
+
+
+def _with_codes(table: pd.DataFrame, flags: pd.DataFrame, scope: str) -> pd.DataFrame:
+    """Add a ``flags`` column of semicolon-separated codes for each record of the given scope."""
+    mine = flags[flags["scope"] == scope]
+    codes = mine.groupby("record_id")["code"].agg(lambda c: ";".join(sorted(set(c))))
+    return table.assign(flags=table.index.map(codes).fillna("").astype(str))
