@@ -89,5 +89,5 @@ def get_results(db: str | os.PathLike | None, settings: analysis.Settings, progr
 def _with_codes(table: pd.DataFrame, flags: pd.DataFrame, scope: str) -> pd.DataFrame:
     """Add a ``flags`` column of semicolon-separated codes for each record of the given scope."""
     mine = flags[flags["scope"] == scope]
-    codes = mine.groupby("record_id")["code"].agg(lambda c: ";".join(sorted(set(c))))
-    return table.assign(flags=table.index.map(codes).fillna("").astype(str))
+    codes = mine.groupby("record_id")["code"].agg(lambda c: ";".join(sorted(set(c)))).to_dict()
+    return table.assign(flags=[codes.get(record, "") for record in table.index])

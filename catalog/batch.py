@@ -1,0 +1,258 @@
+r"""Campaign-scale rate extraction: the fits of :mod:`catalog.kinetics`, vectorised over thousands of trials.
+
+Traces come long-form (one row per point, sorted by trial then time) and are padded, a chunk of trials at a time, to
+2-D arrays (trials x points) with zeros after each trial's last point; every basis g(u) vanishes at u = 0, so padding
+drops out of all sums. For each model the inner linear least squares in (a, r0) is closed form from per-trial sums,
+and the one nonlinear parameter is found without a per-trial loop:
+
+- first and second order: the profile RSS(kappa) on :data:`catalog.kinetics.CURVATURE_GRID`, then safeguarded
+  Newton on the profile derivative inside the grid cell that holds the minimum. By the envelope theorem and the
+  derivative of the normal equations G^T r = 0 (G = [1, g]),
+
+  .. math::
+      \phi = \frac{dRSS}{d\kappa} = -2\rho\, g'^T r,\qquad
+      \phi' = -2\left(\rho' g'^T r + \rho\, g''^T r + \rho\, g'^T r'\right),\quad
+      r' = -\alpha' - \rho' g - \rho g',\quad
+      G^T G \begin{pmatrix}\alpha'\\ \rho'\end{pmatrix} =
+      \begin{pmatrix}-\rho\,\Sigma g'\\ g'^T r - \rho\, g^T g'\end{pmatrix};
+
+- zero order: Hudson's exact enumeration of the breakpoint from prefix sums (every data time as tau, and the
+  decoupled rising-line / plateau-mean optimum of every interval).
+
+Model choice, fallback and every derived field come from the same code as the reference
+(:func:`catalog.kinetics.summarise`), so the two paths differ only in how the minimum is found.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from catalog.kinetics import (
+    CODES,
+    CURVATURE_GRID,
+    CURVATURE_LINE,
+    CURVATURE_MAX,
+    MODELS,
+    SCALAR_FIELDS,
+    ModelFit,
+    aic,
+    check_models,
+    covariance,
+    curvature_basis,
+    curve_theta,
+    embed_cov2,
+    linear_fit,
+    model_eligible,
+    normalise,
+    shape,
+    summarise,
+)
+
+__all__ = ["COLUMNS", "curve_values", "fit_traces"]
+
+COLUMNS = SCALAR_FIELDS + tuple(f"aic_{m}" for m in MODELS)
+#: padded elements (trials x longest trace) held at once; about 5,000 trials of 200 points
+CHUNK_POINTS = 1_000_000
+_NEWTON_STEPS = 60
+
+
+def _rowsum(a, b=None):
+    return a.sum(axis=1) if b is None else np.einsum("ij,ij->i", a, b)
+
+
+def _pack(alpha, rho, theta, rss, jtj, n, n_params, ok) -> ModelFit:
+    cov = covariance(jtj, rss / (n - n_params))
+    if jtj.shape[-1] == 2:
+        cov = embed_cov2(cov)
+    ok = ok & np.isfinite(cov[:, 1, 1]) & np.isfinite(rho) & np.isfinite(rss)
+    return ModelFit(alpha, rho, theta, rss, cov, np.full(n.shape, float(n_params)), ok)
+
+
+def _fit_line_at(g, Y, W, n):
+    """Closed-form y = alpha + rho g per row; residual sum of squares from the residuals themselves."""
+    sg, sgg, sy, sgy = _rowsum(g), _rowsum(g, g), _rowsum(Y), _rowsum(g, Y)
+    alpha, rho, _ = linear_fit(n, sg, sgg, sy, sgy)
+    R = np.where(W, Y - alpha[:, None] - rho[:, None] * g, 0.0)
+    return alpha, rho, _rowsum(R, R), sg, sgg
+
+
+def _fit_zero(U, Y, W, n, eligible) -> ModelFit:
+    m, L = U.shape
+    j = np.arange(L)[None, :]
+    nn = n[:, None]
+    S1, Su, Suu = np.cumsum(W, 1, dtype=float), np.cumsum(U, 1), np.cumsum(U * U, 1)
+    Sy, Suy, Syy = np.cumsum(Y, 1), np.cumsum(U * Y, 1), np.cumsum(Y * Y, 1)
+    Ty, Tyy = Sy[:, -1:], Syy[:, -1:]
+    # tau on data time u_j: g = u before, u_j after
+    after = nn - S1
+    sg, sgg, sgy = Su + U * after, Suu + U * U * after, Suy + U * (Ty - Sy)
+    a_f, r_f, det_f = linear_fit(nn, sg, sgg, Ty, sgy)
+    rss_f = Tyy - a_f * Ty - r_f * sgy
+    ok_f = (j >= 2) & (j <= nn - 2) & (det_f > 0)
+    # tau inside (u_j, u_{j+1}): rising line on points 0..j and the plateau mean of the rest decouple
+    a_r, r_r, _ = linear_fit(S1, Su, Suu, Sy, Suy)
+    n_p = nn - S1
+    beta = (Ty - Sy) / np.where(n_p > 0, n_p, 1.0)
+    rss_i = (Syy - a_r * Sy - r_r * Suy) + ((Tyy - Syy) - beta * (Ty - Sy))
+    tau_i = (beta - a_r) / r_r
+    u_next = np.concatenate((U[:, 1:], np.full((m, 1), np.inf)), axis=1)
+    ok_i = (j >= 2) & (j <= nn - 3) & (U > U[:, :1]) & (r_r != 0) & (tau_i >= U) & (tau_i <= u_next)
+    cand = np.concatenate((np.where(ok_f, rss_f, np.inf), np.where(ok_i, rss_i, np.inf)), axis=1)
+    cand = np.where(np.isnan(cand), np.inf, cand)
+    best = np.argmin(cand, axis=1)
+    has_break = np.isfinite(cand[np.arange(m), best])
+    taus = np.concatenate((U, tau_i), axis=1)[np.arange(m), best]
+    tau = np.where(has_break, taus, np.inf)
+
+    g = np.where(W, np.minimum(U, tau[:, None]), 0.0)
+    a_b, r_b, rss_b, sg_b, sgg_b = _fit_line_at(g, Y, W, n)
+    h = (W & (U > tau[:, None])).astype(float)
+    sh, sgh = _rowsum(h), _rowsum(g, h)
+    jtj = np.stack([np.stack([n, sg_b, r_b * sh], -1), np.stack([sg_b, sgg_b, r_b * sgh], -1),
+                    np.stack([r_b * sh, r_b * sgh, r_b * r_b * sh], -1)], -2)
+    broken = _pack(a_b, r_b, tau, rss_b, jtj, n, 3, eligible & has_break)
+
+    a_l, r_l, rss_l, su, suu = _fit_line_at(U, Y, W, n)
+    jtj = np.stack([np.stack([n, su], -1), np.stack([su, suu], -1)], -2)
+    line = _pack(a_l, r_l, np.full(m, np.inf), rss_l, jtj, n, 2, eligible)
+    use_broken = broken.ok & (aic(broken.rss, n, 3) < aic(line.rss, n, 2))
+    return ModelFit(*(np.where(use_broken.reshape((m,) + (1,) * (getattr(line, f).ndim - 1)),
+                               getattr(broken, f), getattr(line, f)) for f in ModelFit.__dataclass_fields__))
+
+
+def _profile(model, kappa, U, Y, n, sy):
+    """Linear parameters, residuals, phi = dRSS/dkappa, phi' and the Jacobian sums at per-row kappa."""
+    g, d, e = curvature_basis(model, kappa[:, None], U, 2)
+    sg, sgg, sd, sgd, sdd = _rowsum(g), _rowsum(g, g), _rowsum(d), _rowsum(g, d), _rowsum(d, d)
+    alpha, rho, det = linear_fit(n, sg, sgg, sy, _rowsum(g, Y))
+    dr = _rowsum(d, Y) - alpha * sd - rho * sgd  # g'^T r
+    er = _rowsum(e, Y) - alpha * _rowsum(e) - rho * _rowsum(g, e)  # g''^T r
+    b1, b2 = -rho * sd, dr - rho * sgd
+    a_p = (sgg * b1 - sg * b2) / det
+    r_p = (n * b2 - sg * b1) / det
+    d_rp = -a_p * sd - r_p * sgd - rho * sdd  # g'^T r'
+    phi = -2 * rho * dr
+    dphi = -2 * (r_p * dr + rho * er + rho * d_rp)
+    return alpha, rho, phi, dphi, g, d
+
+
+def _fit_curved(model, U, Y, W, n, eligible) -> ModelFit:
+    m = U.shape[0]
+    sy, syy = _rowsum(Y), _rowsum(Y, Y)
+    grid = np.empty((m, CURVATURE_GRID.size))
+    for q, kappa in enumerate(CURVATURE_GRID):
+        g = curvature_basis(model, kappa, U)[0]
+        sgy = _rowsum(g, Y)
+        alpha, rho, _ = linear_fit(n, _rowsum(g), _rowsum(g, g), sy, sgy)
+        grid[:, q] = syy - alpha * sy - rho * sgy
+    i = np.argmin(np.where(np.isnan(grid), np.inf, grid), axis=1)
+    last = CURVATURE_GRID.size - 1
+    x = CURVATURE_GRID[i]
+    _, _, phi, dphi, _, _ = _profile(model, x, U, Y, n, sy)
+    # the minimum lies on the downhill side of the best grid point
+    right = phi < 0
+    lo = np.where(right, x, CURVATURE_GRID[np.maximum(i - 1, 0)])
+    hi = np.where(right, CURVATURE_GRID[np.minimum(i + 1, last)], x)
+    done = ((i == 0) & ~right) | ((i == last) & right) | (phi == 0) | ~eligible
+    at_bound = (i == last) & right
+    for _ in range(_NEWTON_STEPS):
+        act = np.flatnonzero(~done)
+        if act.size == 0:
+            break
+        xa, pa, da, la, ha = x[act], phi[act], dphi[act], lo[act], hi[act]
+        newton = xa - pa / da
+        good = (da > 0) & (newton > la) & (newton < ha)
+        xn = np.where(good, newton, 0.5 * (la + ha))
+        done[act] = np.abs(xn - xa) <= 1e-12 * xa + 1e-15
+        x[act] = xn
+        _, _, phi[act], dphi[act], _, _ = _profile(model, xn, U[act], Y[act], n[act], sy[act])
+        lo[act] = np.where(phi[act] < 0, xn, la)
+        hi[act] = np.where(phi[act] < 0, ha, xn)
+    x = np.where(x < CURVATURE_LINE, 0.0, x)
+    g, d = curvature_basis(model, x[:, None], U, 1)
+    alpha, rho, rss, sg, sgg = _fit_line_at(g, Y, W, n)
+    sd, sgd, sdd = _rowsum(d), _rowsum(g, d), _rowsum(d, d)
+    jtj = np.stack([np.stack([n, sg, rho * sd], -1), np.stack([sg, sgg, rho * sgd], -1),
+                    np.stack([rho * sd, rho * sgd, rho * rho * sdd], -1)], -2)
+    return _pack(alpha, rho, x, rss, jtj, n, 3, eligible & ~at_bound & (x < CURVATURE_MAX * (1 - 1e-9)))
+
+
+def _fit_chunk(T, Yr, W, n_max, models) -> dict:
+    U, Y, c, s, tmax = normalise(T, Yr, W)
+    n = W.sum(axis=1).astype(float)
+    eligible = model_eligible(U, W, n, tmax)
+    fits = {mo: (_fit_zero(U, Y, W, n, eligible) if mo == "zero" else _fit_curved(mo, U, Y, W, n, eligible))
+            for mo in models}
+    return summarise(U, Y, W, c, s, tmax, fits, models, n_max)
+
+
+def _long_form(trial_index, t, amount, n_max):
+    trial = np.asarray(trial_index).ravel()
+    t = np.asarray(t, dtype=float).ravel()
+    y = np.asarray(amount, dtype=float).ravel()
+    n_max = np.asarray(n_max, dtype=float).ravel()
+    if not (trial.shape == t.shape == y.shape):
+        raise ValueError("trial_index, t and amount must have the same length")
+    if trial.size and (not np.issubdtype(trial.dtype, np.integer) or trial.min() < 0 or trial.max() >= n_max.size):
+        raise ValueError(f"trial_index must be integer codes 0..{n_max.size - 1} (one n_max per trial)")
+    return trial.astype(np.int64), t, y, n_max
+
+
+def fit_traces(trial_index, t, amount, n_max, models=MODELS, chunk_points: int = CHUNK_POINTS) -> pd.DataFrame:
+    """Fit every trial's trace at once; one row per trial code 0..m-1 with the fields of ``TraceFit``.
+
+    Parameters
+    ----------
+    trial_index : int array, trial code 0..m-1 of each point (long form, sorted by trial then time; unsorted
+        input is sorted here).
+    t, amount : arrays of time (s) and product amount (mol) per point; non-finite points and t < 0 are left out.
+    n_max : array of length m, stoichiometric maximum product amount per trial, mol (NaN if unknown).
+    models : subset of ('zero', 'first', 'second') to try.
+    chunk_points : padded elements (trials x longest trace) fitted at once; bounds the memory.
+
+    Returns
+    -------
+    DataFrame indexed by trial code (``trial``) with columns :data:`COLUMNS` (the scalar TraceFit fields,
+    aic_zero, aic_first, aic_second).
+    """
+    models = check_models(models)
+    trial, t, y, n_max = _long_form(trial_index, t, amount, n_max)
+    m = n_max.size
+    keep = np.isfinite(t) & np.isfinite(y) & (t >= 0)
+    if not keep.all():
+        trial, t, y = trial[keep], t[keep], y[keep]
+    if trial.size > 1 and ((np.diff(trial) < 0) | ((np.diff(trial) == 0) & (np.diff(t) < 0))).any():
+        order = np.lexsort((t, trial))
+        trial, t, y = trial[order], t[order], y[order]
+    counts = np.bincount(trial, minlength=m)
+    starts = np.concatenate(([0], np.cumsum(counts)))
+    width = max(int(counts.max(initial=0)), 1)
+    rows = max(1, chunk_points // width)
+    parts = []
+    with np.errstate(all="ignore"):
+        for lo in range(0, m, rows):
+            hi = min(lo + rows, m)
+            p0, p1 = starts[lo], starts[hi]
+            L = max(int(counts[lo:hi].max(initial=0)), 1)
+            row = trial[p0:p1] - lo
+            col = np.arange(p0, p1) - starts[trial[p0:p1]]
+            T, Yr, W = np.zeros((hi - lo, L)), np.zeros((hi - lo, L)), np.zeros((hi - lo, L), dtype=bool)
+            T[row, col], Yr[row, col], W[row, col] = t[p0:p1], y[p0:p1], True
+            parts.append(_fit_chunk(T, Yr, W, n_max[lo:hi], models))
+    columns = {name: np.concatenate([p[name] for p in parts]) if parts else np.array([]) for name in COLUMNS}
+    df = pd.DataFrame(columns, index=pd.RangeIndex(m, name="trial"))
+    return df.astype({"model": str, "k_unit": str, "n_points": np.int64})
+
+
+def curve_values(fits_df: pd.DataFrame, trial_index, t) -> np.ndarray:
+    """Fitted amounts (offset included), mol, at each long-form point, from the rows of :func:`fit_traces`."""
+    trial = np.asarray(trial_index, dtype=np.int64).ravel()
+    t = np.asarray(t, dtype=float).ravel()
+    pos = fits_df.index.get_indexer(trial)
+    if (pos < 0).any():
+        raise ValueError("trial_index holds codes that fits_df has no row for")
+    code = fits_df["model"].map(CODES).to_numpy(dtype=np.int64)[pos]
+    r0, k, plateau, offset = (fits_df[c].to_numpy(dtype=float)[pos] for c in ("r0", "k", "plateau", "offset"))
+    with np.errstate(all="ignore"):
+        return offset + r0 * shape(code, t, curve_theta(code, r0, k, plateau))

@@ -1,0 +1,109 @@
+"""catalog.batch: the vectorised fits agree with the per-trial reference catalog.kinetics.fit_trace."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+from test_kinetics import synthetic_trace
+
+from catalog.batch import COLUMNS, curve_values, fit_traces
+from catalog.kinetics import MODELS, fit_trace, model_curve
+
+NUMERIC = [c for c in COLUMNS if c not in ("model", "k_unit", "n_points")]
+
+
+def _campaign(seed=0, trials=54):
+    """Invented traces of all three orders with mixed lengths, offsets, noise and curvature; a few fallbacks."""
+    rng = np.random.default_rng(seed)
+    traces = []
+    for i in range(trials):
+        order = MODELS[i % 3]
+        n = int(rng.integers(12, 120))
+        kappa = rng.uniform(0.8, 2.5) if order == "zero" else rng.uniform(0.3, 15.0)
+        t, amount, _ = synthetic_trace(order, rng, n=n, t_end=rng.uniform(60, 7200), plateau=rng.uniform(1e-4, 1e-2),
+                                       kappa=kappa, offset=rng.uniform(-1e-3, 1e-3), noise=rng.uniform(0.002, 0.03))
+        traces.append((t, amount, rng.uniform(1e-4, 1e-2)))
+    traces[5] = (traces[5][0][:4], traces[5][1][:4], np.nan)  # too short: initial slope
+    traces[7] = (traces[7][0][:2], traces[7][1][:2], 1e-3)  # hopeless: none
+    t, amount, n_max = traces[9]
+    amount = amount.copy()
+    amount[[3, 10]] = np.nan  # dropped points
+    traces[9] = (np.r_[-5.0, t], np.r_[0.0, amount], n_max)  # a negative time, dropped too
+    return traces
+
+
+def _long(traces):
+    trial = np.concatenate([np.full(len(t), i) for i, (t, _, _) in enumerate(traces)])
+    t = np.concatenate([t for t, _, _ in traces])
+    amount = np.concatenate([a for _, a, _ in traces])
+    return trial, t, amount, np.array([m for _, _, m in traces])
+
+
+@pytest.fixture(scope="module")
+def campaign():
+    traces = _campaign()
+    refs = [fit_trace(t, a, m) for t, a, m in traces]
+    return traces, refs, fit_traces(*_long(traces))
+
+
+def test_agrees_with_reference(campaign):
+    traces, refs, df = campaign
+    assert list(df.columns) == list(COLUMNS)
+    assert df.index.name == "trial" and len(df) == len(traces)
+    assert {"zero", "first", "second", "initial_slope", "none"} <= set(df["model"])
+    for i, ref in enumerate(refs):
+        row = df.loc[i]
+        assert row["model"] == ref.model and row["k_unit"] == ref.k_unit and row["n_points"] == ref.n_points
+        # both paths find the same least-squares minimum; r0 to 1e-6 relative (brief asks ~1e-4)
+        assert row["r0"] == pytest.approx(ref.r0, rel=1e-6, nan_ok=True)
+        for name in NUMERIC:
+            want = ref.aic.get(name[4:], np.nan) if name.startswith("aic_") else getattr(ref, name)
+            # the diagnostics are z-scores that can be ~0 by construction: compare those absolutely
+            tol = 1e-6 if name.endswith("_z") else 0.0
+            assert row[name] == pytest.approx(want, rel=1e-5, abs=tol, nan_ok=True), name
+
+
+def test_curve_values_match_reference_curves(campaign):
+    traces, refs, df = campaign
+    trial, t, _, _ = _long(traces)
+    fitted = curve_values(df, trial, t)
+    for i, ((ti, _, _), ref) in enumerate(zip(traces, refs)):
+        np.testing.assert_allclose(fitted[trial == i], model_curve(ref, ti), rtol=1e-7, atol=1e-12)
+
+
+def test_chunking_and_order_do_not_matter(campaign):
+    traces, _, df = campaign
+    trial, t, amount, n_max = _long(traces)
+    small = fit_traces(trial, t, amount, n_max, chunk_points=500)
+    pd.testing.assert_frame_equal(small, df, rtol=1e-9)
+    shuffle = np.random.default_rng(1).permutation(trial.size)
+    shuffled = fit_traces(trial[shuffle], t[shuffle], amount[shuffle], n_max)
+    assert (shuffled["model"] == df["model"]).all()
+    np.testing.assert_allclose(shuffled["r0"], df["r0"], rtol=1e-9)
+
+
+def test_trials_without_points_and_empty_input():
+    df = fit_traces(np.array([1, 1, 1], dtype=int), [0.0, 1.0, 2.0], [0.0, 1.0, 2.0], [np.nan, np.nan, np.nan])
+    assert list(df["model"]) == ["none", "initial_slope", "none"]
+    assert list(df["n_points"]) == [0, 3, 0]
+    assert len(fit_traces(np.array([], dtype=int), [], [], [])) == 0
+
+
+def test_models_subset():
+    traces = _campaign(seed=2, trials=12)
+    df = fit_traces(*_long(traces), models=("first",))
+    for i, (t, a, m) in enumerate(traces):
+        ref = fit_trace(t, a, m, models=("first",))
+        assert df.loc[i, "model"] == ref.model
+        assert df.loc[i, "r0"] == pytest.approx(ref.r0, rel=1e-6, nan_ok=True)
+    assert df["aic_zero"].isna().all() and df["aic_second"].isna().all()
+
+
+def test_rejects_bad_codes():
+    with pytest.raises(ValueError):
+        fit_traces(np.array([0, 2]), [0.0, 1.0], [0.0, 1.0], [1.0, 1.0])
+    with pytest.raises(ValueError):
+        fit_traces(np.array([0.5, 1.0]), [0.0, 1.0], [0.0, 1.0], [1.0, 1.0])
+    with pytest.raises(ValueError):
+        fit_traces(np.array([0, 0]), [0.0, 1.0], [0.0], [1.0])
