@@ -12,7 +12,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import stats
+from scipy import optimize, stats
 from scipy.constants import R, h, k as k_B
 
 from catalog.errors import CatalogError
@@ -53,8 +53,8 @@ class LineFit:
     intercept, slope : float
         Estimates.
     cov : ndarray, shape (2, 2)
-        Covariance of (intercept, slope), already scaled by ``max(1, birge²)`` (weighted) or by the residual
-        variance (unweighted).
+        Covariance of (intercept, slope): with weights 1/(σ² + τ²) when weighted, scaled by the residual variance
+        when unweighted.
     dof : int
         Residual degrees of freedom, ``n_points − 2``.
     coverage_factor : float
@@ -63,8 +63,10 @@ class LineFit:
     chi2 : float
         Weighted residual sum of squares (plain RSS without weights).
     birge : float
-        Birge ratio ``sqrt(chi2/dof)``; about 1 when the stated errors explain the scatter. NaN without weights or
-        residual degrees of freedom.
+        Birge ratio ``sqrt(chi2/dof)`` with the stated errors alone; about 1 when they explain the scatter. NaN
+        without weights or residual degrees of freedom.
+    tau : float
+        Extra scatter (standard deviation on the y scale) added to every stated error; 0 when none was needed.
     r2 : float
         Weighted coefficient of determination.
     n_points : int
@@ -73,6 +75,7 @@ class LineFit:
         Whether standard errors of y were given.
     """
 
+    tau: float
     intercept: float
     slope: float
     cov: np.ndarray
@@ -83,6 +86,20 @@ class LineFit:
     r2: float
     n_points: int
     weighted: bool
+
+
+def _weighted_line(x, y, var):
+    """Weighted straight line with weights 1/var: (chi2, intercept, slope, sum w, x_bar, y_bar, Sxx, w)."""
+    w = 1.0 / var
+    sw = w.sum()
+    x_bar = (w * x).sum() / sw
+    y_bar = (w * y).sum() / sw
+    dx = x - x_bar
+    sxx = (w * dx**2).sum()
+    slope = (w * dx * y).sum() / sxx
+    intercept = y_bar - slope * x_bar
+    chi2 = float((w * (y - intercept - slope * x) ** 2).sum())
+    return chi2, intercept, slope, sw, x_bar, y_bar, sxx, w
 
 
 def fit_line(x, y, y_se=None):
@@ -97,8 +114,10 @@ def fit_line(x, y, y_se=None):
         \\operatorname{var} a = s\\left(\\frac{1}{\\sum w} + \\frac{\\bar x^2}{S_{xx}}\\right),\\quad
         \\operatorname{cov}(a, b) = -\\frac{s\\,\\bar x}{S_{xx}}
 
-    where :math:`s = \\max(1, \\chi^2/\\nu)` with weights (the Birge ratio squared, so scatter beyond the stated
-    errors widens the interval but smaller scatter never narrows it) and :math:`s = \\mathrm{RSS}/\\nu` without.
+    where, with stated errors, :math:`w_i = 1/(\\sigma_i^2 + \\tau^2)` and :math:`s = 1`: the extra variance
+    :math:`\\tau^2 \\ge 0` is zero when the stated errors explain the scatter (:math:`\\chi^2 \\le \\nu`) and
+    otherwise solves :math:`\\sum w_i r_i^2 = \\nu` (Paule-Mandel), so replicate scatter widens the interval and
+    smaller scatter never narrows it. Without stated errors :math:`s = \\mathrm{RSS}/\\nu`.
     Centring on :math:`\\bar x` keeps the sums well conditioned for x = 1/T.
 
     Parameters
@@ -115,23 +134,25 @@ def fit_line(x, y, y_se=None):
     x = np.asarray(x, dtype=float)
     y = np.asarray(y, dtype=float)
     weighted = y_se is not None
-    w = 1.0 / np.asarray(y_se, dtype=float) ** 2 if weighted else np.ones_like(y)
+    var = np.asarray(y_se, dtype=float) ** 2 if weighted else np.ones_like(y)
     n = y.size
     if np.unique(x).size < 2:
         raise ValueError("a straight line needs at least two distinct x values")
-    sw = w.sum()
-    x_bar = (w * x).sum() / sw
-    y_bar = (w * y).sum() / sw
-    dx = x - x_bar
-    sxx = (w * dx**2).sum()
-    slope = (w * dx * y).sum() / sxx
-    intercept = y_bar - slope * x_bar
-    chi2 = float((w * (y - intercept - slope * x) ** 2).sum())
-    tss = float((w * (y - y_bar) ** 2).sum())
     dof = n - 2
+    chi2, *_ = _weighted_line(x, y, var)
+    birge = np.sqrt(chi2 / dof) if weighted and dof > 0 else np.nan
+    tau2 = 0.0
+    if weighted and dof > 0 and chi2 > dof:
+        # Scatter beyond the stated errors (replicate-to-replicate variation) is a variance component shared by
+        # every point, not a multiple of each point's own error: solve sum w_i r_i^2 = nu with w_i = 1/(se_i^2 +
+        # tau^2) (Paule and Mandel 1982). Scaling the covariance instead would let the few most precise points
+        # carry the fit and give intervals that cover too rarely.
+        upper = float(np.var(y) * 10 + var.max())
+        tau2 = optimize.brentq(lambda t2: _weighted_line(x, y, var + t2)[0] - dof, 0.0, upper, xtol=1e-14 * upper)
+    chi2, intercept, slope, sw, x_bar, y_bar, sxx, w = _weighted_line(x, y, var + tau2)
+    tss = float((w * (y - y_bar) ** 2).sum())
     if weighted:
-        birge = np.sqrt(chi2 / dof) if dof > 0 else np.nan
-        scale = max(1.0, birge**2) if dof > 0 else 1.0
+        scale = 1.0
         coverage = stats.t.ppf(0.5 + CONFIDENCE / 2, dof) if dof > 0 else stats.norm.ppf(0.5 + CONFIDENCE / 2)
     else:
         birge = np.nan
@@ -140,6 +161,7 @@ def fit_line(x, y, y_se=None):
     var_b = scale / sxx
     cov = np.array([[scale / sw + x_bar**2 * var_b, -x_bar * var_b], [-x_bar * var_b, var_b]])
     return LineFit(
+        tau=float(np.sqrt(tau2)),
         intercept=float(intercept),
         slope=float(slope),
         cov=cov,
@@ -275,9 +297,9 @@ def fit_arrhenius(T, k, k_se=None):
     .. math:: \\ln k = \\ln A - \\frac{E_a}{R}\\,\\frac{1}{T},\\qquad
               \\operatorname{var}(\\ln k_i) \\approx \\left(\\frac{\\sigma_{k,i}}{k_i}\\right)^2
 
-    With standard errors the parameter covariance is multiplied by ``max(1, χ²/ν)`` — the Birge ratio squared — so
-    replicate scatter beyond the stated errors widens the interval, while scatter smaller than stated never narrows
-    it. Without standard errors it is ordinary least squares with the residual variance. Intervals are
+    With standard errors, replicate scatter beyond the stated errors enters as an extra variance τ² added to every
+    point (Paule-Mandel, see :func:`fit_line`), so it widens the interval, while scatter smaller than stated never
+    narrows it; ``birge`` reports how far the stated errors alone fall short. Without standard errors it is ordinary least squares with the residual variance. Intervals are
     ``estimate ± t(0.975, n−2)·se``; with standard errors that already explain the scatter this is conservative
     (coverage a little above 95 %), which we prefer to an interval that trusts the stated errors blindly.
 
@@ -398,7 +420,7 @@ def fit_eyring(T, k, k_se=None):
     .. math:: \\ln\\frac{k}{T} = \\ln\\frac{k_B}{h} + \\frac{\\Delta S^\\ddagger}{R}
               - \\frac{\\Delta H^\\ddagger}{R}\\,\\frac{1}{T}
 
-    Weights, Birge scaling, dropping rules and intervals are those of :func:`fit_arrhenius`. ΔS‡ depends on the
+    Weights, extra scatter, dropping rules and intervals are those of :func:`fit_arrhenius`. ΔS‡ depends on the
     unit of k: it is the textbook value for a first-order k in 1/s; for other orders it refers to a 1 mol/m³
     standard state.
 

@@ -40,7 +40,7 @@ def reaction_order(concentration, r0, r0_se=None):
     .. math:: r_0 = k\\,c^{\\,n} \\;\\Rightarrow\\; \\ln r_0 = \\ln k + n \\ln c
 
     Weighted as in :func:`catalog.arrhenius.fit_arrhenius` when standard errors are given
-    (var ln r0 = (σ/r0)², Birge-scaled covariance); intervals use Student t with n − 2 degrees of freedom.
+    (var ln r0 = (σ/r0)² plus the Paule-Mandel extra scatter); intervals use Student t with n − 2 degrees of freedom.
 
     Parameters
     ----------
