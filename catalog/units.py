@@ -114,3 +114,24 @@ def from_si(values, reference: str):
 def _dimension_words(unit: pint.Unit) -> str:
     dim = str(unit.dimensionality)
     return "a dimensionless number" if dim == "dimensionless" else f"dimension {dim}"
+
+
+_QUANTITY = re.compile(r"^\s*(?P<number>[-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*(?P<unit>.*?)\s*$")
+
+
+def parse_temperature(text: str, default_unit: str = "degC") -> float:
+    """Read a temperature such as ``"35"`` (in ``default_unit``), ``"310 K"`` or ``"95 degF"``; return kelvin.
+
+    Raises
+    ------
+    UnitProblem
+        Not a number with an optional temperature unit, or at/below absolute zero.
+    """
+    match = _QUANTITY.match(str(text))
+    if match is None:
+        raise UnitProblem(f"'{text}' is not a temperature (write e.g. 35, '35 degC' or '308.15 K')")
+    scale, shift, _ = si_converter(match.group("unit") or default_unit, "degC")
+    kelvin = float(match.group("number")) * scale + shift
+    if kelvin <= 0:
+        raise UnitProblem(f"'{text}' is at or below absolute zero")
+    return kelvin
