@@ -1,0 +1,434 @@
+"""Diagnostic flags: warnings about transport control, deactivation, fit quality, data coverage and hazards.
+
+Every flag is a row with a short code, a severity, a plain-language message that carries the numbers behind it, and
+the value compared with its threshold. Flags are warnings only: they never change a figure or drop a record, and
+what the analysis chose (the rate law, the site basis) is information, not a flag. :data:`FLAG_CODES` explains each
+code and what to do about it; exports, the report and the app show that text next to the code.
+
+Severities
+----------
+``warning``
+    The figure may not mean what it seems (a transport-limited rate is not a catalyst property).
+``note``
+    Worth knowing when comparing figures (an extrapolated reference value, a curved Arrhenius plot).
+``caution``
+    A screening hazard estimate; it always carries :data:`catalog.hazard.CAUTION`.
+
+Sources of the thresholds (values live in :class:`catalog.analysis.Settings`)
+-----------------------------------------------------------------------------
+- apparent Ea below about 20 kJ/mol suggests transport control (common practice, no source); strong pore diffusion
+  only halves the intrinsic Ea (Thiele 1939), so a pore-limited rate with an intrinsic Ea of 100 kJ/mol shows about
+  50 kJ/mol and passes this check. That is why the Weisz-Prater and loading-series checks exist beside it;
+- Weisz-Prater number above 0.3 (Weisz and Prater, Adv. Catal. 6, 143 (1954));
+- Mears number above 0.15 (Mears, Ind. Eng. Chem. Process Des. Dev. 10, 541 (1971));
+- loading series at constant dispersion: ln(rate per mass) against ln(sites per mass) has slope 1 under kinetic
+  control and about 0.5 under strong pore diffusion (Koros and Nowak, Chem. Eng. Sci. 22, 470 (1967); Madon and
+  Boudart, Ind. Eng. Chem. Fundam. 21, 438 (1982));
+- adiabatic temperature rise bands 50 K and 200 K (Stoessel, Thermal Safety of Chemical Processes, 2008).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+from catalog import arrhenius, hazard
+
+__all__ = ["DEACTIVATION_MIN_TRIALS", "DISPERSION_MATCH", "FLAG_CODES", "FLAG_COLUMNS", "FLAG_SEVERITY",
+           "LEVELLED_FRACTION", "evaluate", "loading_series"]
+
+FLAG_COLUMNS = ("scope", "record_id", "code", "severity", "message", "value", "threshold")
+
+#: A trace that reached this fraction of its own fitted plateau has levelled off: the rate has died, so a short
+#: plateau is real rather than an extrapolation of a slow trial (common practice, no source).
+LEVELLED_FRACTION = 0.95
+#: Dispersions within this relative difference count as "the same" in a loading series (common practice, no
+#: source): chemisorption dispersions are rarely better than ±10 %.
+DISPERSION_MATCH = 0.10
+#: A catalyst is flagged for deactivation when at least this many of its trials show it, or more than half of them.
+#: One stray trial among many is more likely a trial problem (a leak, a mis-weighed charge) than the catalyst; two
+#: independent trials make a pattern.
+DEACTIVATION_MIN_TRIALS = 2
+
+#: code → (title, what it means and what to do).
+FLAG_CODES: dict[str, tuple[str, str]] = {
+    "transport-ea": (
+        "Apparent activation energy is low",
+        "An apparent Ea this low is typical of a rate limited by diffusion or film transfer rather than by the "
+        "surface reaction, so the TOF would measure the set-up, not the catalyst. Check with smaller particles or "
+        "faster stirring; the rate should not change if kinetics are in control.",
+    ),
+    "weisz-prater": (
+        "Pore diffusion may limit the rate (Weisz-Prater)",
+        "The Weisz-Prater number compares the observed rate with the rate at which reactant can diffuse into the "
+        "particle. Above the limit the particle interior is starved and the rate understates the catalyst. Crush "
+        "or sieve to smaller particles and repeat.",
+    ),
+    "mears": (
+        "Film mass transfer may limit the rate (Mears)",
+        "The Mears number compares the observed rate with transfer through the liquid film around the particle. "
+        "Above the limit the surface sees less reactant than the bulk. Stir faster or use less catalyst and repeat.",
+    ),
+    "loading-slope": (
+        "Rate does not scale with the number of sites (loading series)",
+        "For catalysts that differ only in metal loading at the same dispersion, the rate per gram should be "
+        "proportional to the sites per gram (slope 1 on log axes) when kinetics are in control. A slope near 0.5 "
+        "points to pore diffusion; other slopes to sites that are not equivalent. Every catalyst in the series "
+        "carries this flag.",
+    ),
+    "late-shortfall": (
+        "Trace falls below the fit at late times",
+        "The last third of the trace lies consistently below the fitted rate law: the trial slowed down more than "
+        "the model allows, as a deactivating catalyst does. Look at the plotted trace; compare with a fresh charge.",
+    ),
+    "plateau-short": (
+        "Trace levelled off short of full conversion",
+        "The trace reached its own plateau well below the amount the limiting reactant can give, while the rate "
+        "had died. A deactivated catalyst does this; so do a leak, a wrong limiting amount or product lost to a "
+        "side reaction. Check the charge and the vessel, then test a used catalyst with fresh reactant.",
+    ),
+    "deactivation": (
+        "Catalyst appears to deactivate",
+        "Several of this catalyst's trials slow down early or stop short of full conversion. Initial rates may "
+        "still be sound, but TON and any long-run figure are not. Run a recycle test or add fresh reactant to a "
+        "spent trial to confirm.",
+    ),
+    "poor-fit": (
+        "Rate law fits the trace poorly",
+        "The coefficient of determination is below the limit: the initial rate from this fit is uncertain. Look at "
+        "the trace for noise, steps or a late start, and correct or repeat the trial.",
+    ),
+    "residual-pattern": (
+        "Residuals follow a pattern",
+        "The signs of the residuals change far less (or more) often than chance allows: the chosen rate law misses "
+        "the shape of the trace. The initial rate may be biased; check the trace against the fitted curve.",
+    ),
+    "fit-fallback": (
+        "No rate law fitted; initial slope used or no rate",
+        "None of the integrated rate laws could be fitted, so the rate comes from a straight line through the early "
+        "points, or there is no rate at all. Treat the figure as rough; more points early in the trial help.",
+    ),
+    "replicate-spread": (
+        "Replicates disagree",
+        "Repeat trials at one temperature scatter more than the limit (coefficient of variation). Differences "
+        "between catalysts smaller than this spread are not meaningful. Check weighing, temperature and mixing, "
+        "and add replicates.",
+    ),
+    "blank-dominated": (
+        "Rate barely above the blank",
+        "The catalysed rate is less than the stated multiple of the uncatalysed (blank) rate, so the TOF is a "
+        "small difference of two similar numbers and very uncertain. Use more catalyst or a lower temperature.",
+    ),
+    "single-temperature": (
+        "Measured at one temperature only",
+        "With one temperature there is no activation energy, and TOF is known only at that temperature. Add trials "
+        "at two or more further temperatures.",
+    ),
+    "no-ea": (
+        "No activation energy could be fitted",
+        "Trials span several temperatures but fewer than two usable TOF values remain (often the site count is "
+        "unknown, or the rates did not exceed the blank). Give loading and dispersion or a site density.",
+    ),
+    "few-temperatures": (
+        "Activation energy from few temperatures",
+        "The Arrhenius fit rests on fewer temperatures than recommended; its interval is wide and curvature cannot "
+        "be seen. Add a temperature.",
+    ),
+    "ref-outside-range": (
+        "Reference temperature outside the measured range",
+        "The TOF at the reference temperature is an extrapolation along the Arrhenius line (or not available "
+        "without an Ea). Its interval grows quickly outside the range; pick a reference inside it or measure there.",
+    ),
+    "arrhenius-curvature": (
+        "Arrhenius plot is curved",
+        "ln TOF against 1/T bends more than scatter explains: the mechanism, the rate-limiting step or transport "
+        "control may change across the range. Quote Ea for a narrower range, or check transport at the hot end.",
+    ),
+    "thermal-hazard": (
+        "Adiabatic temperature rise estimated",
+        "If all reaction heat stayed in the vessel the contents would warm by this much. Bands: low below 50 K, "
+        "medium 50-200 K, high above 200 K. " + hazard.CAUTION,
+    ),
+    "pressure-build-up": (
+        "Closed-vessel pressure rise estimated",
+        "The gas the reaction can release would raise the closed headspace pressure by this much at the trial "
+        "temperature. Check it against the vessel's rating and relief. " + hazard.CAUTION,
+    ),
+}
+
+#: code → 'warning' | 'note' | 'caution'
+FLAG_SEVERITY: dict[str, str] = {
+    "transport-ea": "warning", "weisz-prater": "warning", "mears": "warning", "loading-slope": "warning",
+    "late-shortfall": "warning", "plateau-short": "warning", "deactivation": "warning", "poor-fit": "warning",
+    "residual-pattern": "note", "fit-fallback": "warning", "replicate-spread": "warning",
+    "blank-dominated": "warning", "single-temperature": "warning", "no-ea": "warning", "few-temperatures": "note",
+    "ref-outside-range": "note", "arrhenius-curvature": "note", "thermal-hazard": "caution",
+    "pressure-build-up": "caution",
+}
+
+_ZERO_CELSIUS = 273.15
+# Two-sided 95 % normal quantile, matching the interval convention of catalog.arrhenius.
+_Z95 = float(stats.norm.ppf(0.5 + arrhenius.CONFIDENCE / 2))
+
+
+def _flag(scope: str, record_id, code: str, message: str, value: float, threshold: float) -> dict:
+    return {"scope": scope, "record_id": str(record_id), "code": code, "severity": FLAG_SEVERITY[code],
+            "message": message, "value": float(value), "threshold": float(threshold)}
+
+
+def _column(table: pd.DataFrame, name: str) -> pd.Series:
+    """A numeric column, or all-NaN when the table lacks it (hand-built or older cached tables)."""
+    if name in table.columns:
+        return pd.to_numeric(table[name], errors="coerce").astype(float)
+    return pd.Series(np.nan, index=table.index, dtype=float)
+
+
+def _kelvin_text(T: float) -> str:
+    return f"{T:.2f} K ({T - _ZERO_CELSIUS:.1f} °C)"
+
+
+def _trial_flags(trials: pd.DataFrame, settings) -> list[dict]:
+    """Fit quality, deactivation, blank, transport and hazard flags of single trials."""
+    s = settings
+    out: list[dict] = []
+    catalysed = trials["catalyst_id"].notna() if "catalyst_id" in trials.columns else pd.Series(True, trials.index)
+    model = trials["model"].astype(object) if "model" in trials.columns else pd.Series(None, trials.index, object)
+    r2 = _column(trials, "r2")
+    runs_z = _column(trials, "runs_z")
+    late_z = _column(trials, "late_residual_z")
+    plateau = _column(trials, "plateau_ratio")
+    final = _column(trials, "final_conversion")
+    ratio = _column(trials, "enhancement")
+    wp = _column(trials, "weisz_prater")
+    mears = _column(trials, "mears")
+    rise = _column(trials, "adiabatic_rise")
+    burst = _column(trials, "pressure_rise_max")
+    temperature = _column(trials, "temperature")
+
+    for tid in trials.index[model.isin(["initial_slope", "none"])]:
+        what = "no rate could be fitted" if model[tid] == "none" else "the rate is the slope of the early points"
+        # value/threshold: the rate laws tried vs fitted carry no number; 0 of 1 fitted keeps the columns numeric.
+        out.append(_flag("trial", tid, "fit-fallback", f"No integrated rate law fitted this trace; {what}.", 0.0, 1.0))
+    for tid in trials.index[r2 < s.min_r2]:
+        out.append(_flag("trial", tid, "poor-fit",
+                         f"R² of the rate-law fit is {r2[tid]:.4f}, below {s.min_r2:g}.", r2[tid], s.min_r2))
+    for tid in trials.index[runs_z.abs() > s.runs_z_limit]:
+        out.append(_flag("trial", tid, "residual-pattern",
+                         f"Runs test of the residual signs gives z = {runs_z[tid]:.1f}; beyond ±{s.runs_z_limit:g} "
+                         "the residuals are not random.", runs_z[tid], s.runs_z_limit))
+    for tid in trials.index[catalysed & (late_z < s.late_residual_z_limit)]:
+        out.append(_flag("trial", tid, "late-shortfall",
+                         f"The last third of the trace lies below the fitted curve (mean residual z = "
+                         f"{late_z[tid]:.1f}, limit {s.late_residual_z_limit:g}).", late_z[tid],
+                         s.late_residual_z_limit))
+    # A short plateau alone is not enough: a slow trial stopped early has an extrapolated plateau that can be anything.
+    # Only when the trace has reached its own plateau (rate died) is the shortfall measured rather than guessed.
+    levelled = final >= LEVELLED_FRACTION * plateau
+    for tid in trials.index[catalysed & (plateau > 0) & (plateau < s.plateau_shortfall) & levelled]:
+        out.append(_flag("trial", tid, "plateau-short",
+                         f"The trace levelled off at {plateau[tid]:.0%} of full conversion (reached "
+                         f"{final[tid]:.0%}), below {s.plateau_shortfall:.0%}.", plateau[tid], s.plateau_shortfall))
+    for tid in trials.index[catalysed & (ratio < s.min_enhancement)]:
+        out.append(_flag("trial", tid, "blank-dominated",
+                         f"Rate is {ratio[tid]:.2f} times the blank rate at {_kelvin_text(temperature[tid])}, below "
+                         f"{s.min_enhancement:g} times.", ratio[tid], s.min_enhancement))
+    for tid in trials.index[wp > s.weisz_prater_limit]:
+        out.append(_flag("trial", tid, "weisz-prater",
+                         f"Weisz-Prater number {wp[tid]:.3g} exceeds {s.weisz_prater_limit:g}.", wp[tid],
+                         s.weisz_prater_limit))
+    for tid in trials.index[mears > s.mears_limit]:
+        out.append(_flag("trial", tid, "mears", f"Mears number {mears[tid]:.3g} exceeds {s.mears_limit:g}.",
+                         mears[tid], s.mears_limit))
+    for tid in trials.index[rise.notna()]:
+        out.append(_thermal_flag("trial", tid, rise[tid]))
+    for tid in trials.index[burst.notna()]:
+        out.append(_flag("trial", tid, "pressure-build-up",
+                         f"Closed vessel: complete reaction would raise the headspace pressure by about "
+                         f"{burst[tid] / 1e3:.0f} kPa at {_kelvin_text(temperature[tid])}. {hazard.CAUTION}",
+                         burst[tid], 0.0))
+    return out
+
+
+def _thermal_flag(scope: str, record_id, delta_t: float) -> dict:
+    """Adiabatic-rise caution; threshold is the top of the low band (50 K), the band is named in the message."""
+    band = "low" if delta_t < hazard.LOW_RISE else ("medium" if delta_t <= hazard.HIGH_RISE else "high")
+    return _flag(scope, record_id, "thermal-hazard",
+                 f"Adiabatic temperature rise about {delta_t:.0f} K: {band} band (low below {hazard.LOW_RISE:.0f} K, "
+                 f"high above {hazard.HIGH_RISE:.0f} K). {hazard.CAUTION}", delta_t, hazard.LOW_RISE)
+
+
+def _deactivation_rollup(trials: pd.DataFrame, trial_flags: list[dict]) -> list[dict]:
+    """Catalyst-level deactivation from its trials' late-shortfall and plateau-short flags.
+
+    Flagged when ``n_flagged ≥ DEACTIVATION_MIN_TRIALS`` or ``n_flagged > n_trials / 2``; value is the fraction of
+    trials flagged, threshold ½.
+    """
+    if "catalyst_id" not in trials.columns:
+        return []
+    hit = {f["record_id"] for f in trial_flags if f["code"] in ("late-shortfall", "plateau-short")}
+    out = []
+    for cid, group in trials[trials["catalyst_id"].notna()].groupby("catalyst_id", sort=True):
+        n = len(group)
+        k = sum(str(t) in hit for t in group.index)
+        if k >= DEACTIVATION_MIN_TRIALS or k > n / 2:
+            out.append(_flag("catalyst", cid, "deactivation",
+                             f"{k} of {n} trials slow down late or level off short of full conversion.", k / n, 0.5))
+    return out
+
+
+def loading_series(catalysts: pd.DataFrame) -> pd.DataFrame:
+    """Loading series (same metal and support, matching dispersion, ≥ 2 loadings) and their log-log slope.
+
+    For each series the slope b of
+
+    .. math:: \\ln r_m(T_\\mathrm{ref}) = a + b\\,\\ln n_{s,m}
+
+    with :math:`r_m` the rate per mass and :math:`n_{s,m} = r_m / \\mathrm{TOF}` the sites per mass, weighted by
+    :math:`\\sigma_{\\ln r} = (\\ln \\mathrm{TOF}_{high} - \\ln \\mathrm{TOF}_{low})/(2 z_{0.975})`. Kinetic
+    control gives b = 1 (Koros and Nowak 1967; Madon and Boudart 1982).
+
+    Returns
+    -------
+    DataFrame
+        One row per catalyst in a series: ``series`` (label), ``slope``, ``slope_low``, ``slope_high`` (95 %),
+        ``n_loadings``; indexed by catalyst_id. Empty when there is no series.
+    """
+    columns = ["series", "slope", "slope_low", "slope_high", "n_loadings"]
+    needed = {"metal", "support", "dispersion", "metal_loading", "rate_per_mass_ref", "tof_ref"}
+    if not needed <= set(catalysts.columns):
+        return pd.DataFrame(columns=columns, index=pd.Index([], name="catalyst_id"))
+    rate = _column(catalysts, "rate_per_mass_ref")
+    tof = _column(catalysts, "tof_ref")
+    dispersion = _column(catalysts, "dispersion")
+    usable = (rate > 0) & (tof > 0) & (dispersion > 0) & catalysts["metal"].notna() & catalysts["support"].notna()
+    ln_se = (np.log(_column(catalysts, "tof_ref_high")) - np.log(_column(catalysts, "tof_ref_low"))) / (2 * _Z95)
+    rows = []
+    for (metal, support), group in catalysts[usable].groupby(["metal", "support"], sort=True):
+        # Dispersion clusters: sorted ln D with a gap wider than the match tolerance starts a new cluster.
+        ln_d = np.log(dispersion[group.index]).sort_values()
+        cluster = np.concatenate([[0], np.cumsum(np.diff(ln_d.to_numpy()) > np.log1p(DISPERSION_MATCH))])
+        for label in np.unique(cluster):
+            ids = ln_d.index[cluster == label]
+            x = np.log((rate[ids] / tof[ids]).to_numpy())
+            if len(np.unique(np.round(x, 3))) < 2:
+                continue
+            y = np.log(rate[ids].to_numpy())
+            se = ln_se[ids].to_numpy()
+            weighted = bool(np.all(np.isfinite(se) & (se > 0)))
+            line = arrhenius.fit_line(x, y, se if weighted else None)
+            half = line.coverage_factor * np.sqrt(line.cov[1, 1])
+            name = f"{metal}/{support}, dispersion {np.exp(ln_d[ids].mean()):.0%}"
+            for cid in ids:
+                rows.append({"catalyst_id": cid, "series": name, "slope": line.slope, "slope_low": line.slope - half,
+                             "slope_high": line.slope + half, "n_loadings": len(np.unique(np.round(x, 3)))})
+    if not rows:
+        return pd.DataFrame(columns=columns, index=pd.Index([], name="catalyst_id"))
+    return pd.DataFrame(rows).set_index("catalyst_id")[columns]
+
+
+def _catalyst_flags(catalysts: pd.DataFrame, settings) -> list[dict]:
+    """Transport, coverage, replicate, blank, Arrhenius and hazard flags of catalysts."""
+    s = settings
+    out: list[dict] = []
+    ea = _column(catalysts, "ea")
+    ea_low = _column(catalysts, "ea_low")
+    ea_high = _column(catalysts, "ea_high")
+    n_temperatures = _column(catalysts, "n_temperatures")
+    cv = _column(catalysts, "replicate_cv")
+    ratio = _column(catalysts, "enhancement_ref")
+    curvature = _column(catalysts, "curvature_p")
+    wp = _column(catalysts, "max_weisz_prater")
+    mears = _column(catalysts, "max_mears")
+    rise = _column(catalysts, "max_adiabatic_rise")
+    tof_ref = _column(catalysts, "tof_ref")
+    t_min = _column(catalysts, "t_min")
+    t_max = _column(catalysts, "t_max")
+    T_ref = s.reference_temperature
+    extrapolated = (catalysts["tof_ref_extrapolated"].fillna(False).astype(bool)
+                    if "tof_ref_extrapolated" in catalysts.columns else pd.Series(False, catalysts.index))
+
+    for cid in catalysts.index[ea < s.low_ea]:
+        out.append(_flag("catalyst", cid, "transport-ea",
+                         f"Apparent Ea {ea[cid] / 1e3:.1f} kJ/mol (95 % interval {ea_low[cid] / 1e3:.1f} to "
+                         f"{ea_high[cid] / 1e3:.1f}) is below {s.low_ea / 1e3:g} kJ/mol.", ea[cid], s.low_ea))
+    for cid in catalysts.index[wp > s.weisz_prater_limit]:
+        out.append(_flag("catalyst", cid, "weisz-prater",
+                         f"Largest Weisz-Prater number among its trials is {wp[cid]:.3g}, above "
+                         f"{s.weisz_prater_limit:g}.", wp[cid], s.weisz_prater_limit))
+    for cid in catalysts.index[mears > s.mears_limit]:
+        out.append(_flag("catalyst", cid, "mears", f"Largest Mears number among its trials is {mears[cid]:.3g}, "
+                         f"above {s.mears_limit:g}.", mears[cid], s.mears_limit))
+    series = loading_series(catalysts)
+    for cid, row in series.iterrows():
+        if abs(row["slope"] - 1.0) > s.loading_slope_tolerance:
+            bound = 1.0 + np.sign(row["slope"] - 1.0) * s.loading_slope_tolerance
+            interval = (f" (95 % interval {row['slope_low']:.2f} to {row['slope_high']:.2f})"
+                        if np.isfinite(row["slope_low"]) else "")
+            out.append(_flag("catalyst", cid, "loading-slope",
+                             f"In the loading series {row['series']} ({row['n_loadings']} loadings) ln(rate per "
+                             f"gram) rises with slope {row['slope']:.2f}{interval} against ln(sites per gram); "
+                             f"kinetic control gives 1 ± {s.loading_slope_tolerance:g}.", row["slope"], bound))
+    for cid in catalysts.index[cv > s.replicate_cv_limit]:
+        out.append(_flag("catalyst", cid, "replicate-spread",
+                         f"Replicate TOFs at one temperature vary by {cv[cid]:.0%} (coefficient of variation), "
+                         f"above {s.replicate_cv_limit:.0%}.", cv[cid], s.replicate_cv_limit))
+    for cid in catalysts.index[ratio < s.min_enhancement]:
+        out.append(_flag("catalyst", cid, "blank-dominated",
+                         f"At {_kelvin_text(T_ref)} the catalysed rate is {ratio[cid]:.2f} times the blank, below "
+                         f"{s.min_enhancement:g} times.", ratio[cid], s.min_enhancement))
+    for cid in catalysts.index[n_temperatures < 2]:
+        out.append(_flag("catalyst", cid, "single-temperature",
+                         f"All trials at one temperature, {_kelvin_text(t_min[cid])}; no activation energy.",
+                         n_temperatures[cid], 2))
+    for cid in catalysts.index[(n_temperatures >= 2) & ea.isna()]:
+        out.append(_flag("catalyst", cid, "no-ea",
+                         f"Trials at {n_temperatures[cid]:.0f} temperatures, but no Arrhenius fit: fewer than two "
+                         "temperatures have a usable TOF.", n_temperatures[cid], 2))
+    for cid in catalysts.index[(n_temperatures >= 2) & (n_temperatures < s.min_temperatures) & ea.notna()]:
+        out.append(_flag("catalyst", cid, "few-temperatures",
+                         f"Ea rests on {n_temperatures[cid]:.0f} temperatures; at least {s.min_temperatures} are "
+                         "recommended.", n_temperatures[cid], s.min_temperatures))
+    for cid in catalysts.index[extrapolated]:
+        how = ("the TOF there is extrapolated along the Arrhenius line" if np.isfinite(tof_ref[cid])
+               else "without an Ea there is no TOF there")
+        # value: distance (K) from the measured range, threshold 0 K.
+        gap = max(t_min[cid] - T_ref, T_ref - t_max[cid], 0.0)
+        out.append(_flag("catalyst", cid, "ref-outside-range",
+                         f"Reference {_kelvin_text(T_ref)} lies outside the measured {_kelvin_text(t_min[cid])} to "
+                         f"{_kelvin_text(t_max[cid])}; {how}.", gap, 0.0))
+    for cid in catalysts.index[curvature < s.curvature_p_limit]:
+        out.append(_flag("catalyst", cid, "arrhenius-curvature",
+                         f"A quadratic term in 1/T improves the Arrhenius fit beyond chance (p = {curvature[cid]:.2g}, "
+                         f"limit {s.curvature_p_limit:g}).", curvature[cid], s.curvature_p_limit))
+    for cid in catalysts.index[rise.notna()]:
+        out.append(_thermal_flag("catalyst", cid, rise[cid]))
+    return out
+
+
+def evaluate(result, settings) -> pd.DataFrame:
+    """Every diagnostic flag of one analysis.
+
+    Parameters
+    ----------
+    result : catalog.analysis.Analysis
+        Anything with ``trials`` (indexed by trial_id) and ``catalysts`` (indexed by catalyst_id) tables in the
+        layout of :func:`catalog.analysis.analyse`; missing columns simply raise no flag.
+    settings : catalog.analysis.Settings
+        Thresholds.
+
+    Returns
+    -------
+    DataFrame
+        Columns :data:`FLAG_COLUMNS`: scope ('trial' | 'catalyst'), record_id, code (a key of :data:`FLAG_CODES`),
+        severity ('warning' | 'caution' | 'note'), message, value, threshold. Sorted by scope, record and code.
+    """
+    trial_flags = _trial_flags(result.trials, settings) if len(result.trials) else []
+    rows = trial_flags + (_deactivation_rollup(result.trials, trial_flags) if len(result.trials) else [])
+    if len(result.catalysts):
+        rows += _catalyst_flags(result.catalysts, settings)
+    if not rows:
+        return pd.DataFrame({c: pd.Series(dtype=float if c in ("value", "threshold") else object)
+                             for c in FLAG_COLUMNS})
+    table = pd.DataFrame(rows, columns=list(FLAG_COLUMNS))
+    return table.sort_values(["scope", "record_id", "code"], kind="stable").reset_index(drop=True)
