@@ -147,8 +147,8 @@ FLAG_CODES: dict[str, tuple[str, str]] = {
     ),
     "thermal-hazard": (
         "Adiabatic temperature rise estimated",
-        "If all reaction heat stayed in the vessel the contents would warm by this much. Bands: low below 50 K, "
-        "medium 50-200 K, high above 200 K. " + hazard.CAUTION,
+        "If all reaction heat stayed in the vessel the contents would warm by this much. Bands: low below 50 K "
+        "(not flagged; the value is still in the tables), medium 50-200 K, high above 200 K. " + hazard.CAUTION,
     ),
     "pressure-build-up": (
         "Closed-vessel pressure rise estimated",
@@ -240,7 +240,8 @@ def _trial_flags(trials: pd.DataFrame, settings) -> list[dict]:
     for tid in trials.index[mears > s.mears_limit]:
         out.append(_flag("trial", tid, "mears", f"Mears number {mears[tid]:.3g} exceeds {s.mears_limit:g}.",
                          mears[tid], s.mears_limit))
-    for tid in trials.index[rise.notna()]:
+    # A rise in the low band is reported in the tables but is no hazard worth a flag on every trial.
+    for tid in trials.index[rise >= hazard.LOW_RISE]:
         out.append(_thermal_flag("trial", tid, rise[tid]))
     for tid in trials.index[burst.notna()]:
         out.append(_flag("trial", tid, "pressure-build-up",
@@ -251,8 +252,8 @@ def _trial_flags(trials: pd.DataFrame, settings) -> list[dict]:
 
 
 def _thermal_flag(scope: str, record_id, delta_t: float) -> dict:
-    """Adiabatic-rise caution; threshold is the top of the low band (50 K), the band is named in the message."""
-    band = "low" if delta_t < hazard.LOW_RISE else ("medium" if delta_t <= hazard.HIGH_RISE else "high")
+    """Adiabatic-rise caution (medium or high band); threshold is the top of the low band, 50 K."""
+    band = "medium" if delta_t <= hazard.HIGH_RISE else "high"
     return _flag(scope, record_id, "thermal-hazard",
                  f"Adiabatic temperature rise about {delta_t:.0f} K: {band} band (low below {hazard.LOW_RISE:.0f} K, "
                  f"high above {hazard.HIGH_RISE:.0f} K). {hazard.CAUTION}", delta_t, hazard.LOW_RISE)
@@ -401,7 +402,7 @@ def _catalyst_flags(catalysts: pd.DataFrame, settings) -> list[dict]:
         out.append(_flag("catalyst", cid, "arrhenius-curvature",
                          f"A quadratic term in 1/T improves the Arrhenius fit beyond chance (p = {curvature[cid]:.2g}, "
                          f"limit {s.curvature_p_limit:g}).", curvature[cid], s.curvature_p_limit))
-    for cid in catalysts.index[rise.notna()]:
+    for cid in catalysts.index[rise >= hazard.LOW_RISE]:
         out.append(_thermal_flag("catalyst", cid, rise[cid]))
     return out
 

@@ -11,11 +11,13 @@ from __future__ import annotations
 import hashlib
 import json
 import os
+from pathlib import Path
 from dataclasses import asdict, dataclass
 
 import pandas as pd
 
-from catalog import analysis, diagnostics, store
+from catalog import (analysis, arrhenius, batch, diagnostics, hazard, kinetics, orders, photons, signals, sites, store,
+                     transport)
 
 
 @dataclass(frozen=True)
@@ -46,9 +48,25 @@ class Results:
     computed: bool
 
 
+def _code_hash() -> str:
+    """Fingerprint of the source of every module that shapes the cached figures.
+
+    A released version number alone would let a changed diagnostic rule or fit serve stale cached results during
+    development; hashing the source makes any such change start a fresh run.
+    """
+    digest = hashlib.sha256()
+    for module in (analysis, arrhenius, batch, diagnostics, hazard, kinetics, orders, photons, signals, sites,
+                   transport):
+        digest.update(Path(module.__file__).read_bytes())
+    return digest.hexdigest()[:16]
+
+
+CODE_HASH = _code_hash()
+
+
 def run_key(settings: analysis.Settings, stamp: str) -> str:
-    """Cache key of a result set: settings, code version and data fingerprint."""
-    return hashlib.sha256(f"{settings.key()}|{stamp}".encode()).hexdigest()[:20]
+    """Cache key of a result set: settings, code fingerprint and data fingerprint."""
+    return hashlib.sha256(f"{settings.key()}|{CODE_HASH}|{stamp}".encode()).hexdigest()[:20]
 
 
 def get_results(db: str | os.PathLike | None, settings: analysis.Settings, progress=None) -> Results:

@@ -75,7 +75,7 @@ def test_clean_hand_built_records_raise_nothing():
     ({"enhancement": 1.4}, "blank-dominated"),
     ({"weisz_prater": 2.5}, "weisz-prater"),
     ({"mears": 0.4}, "mears"),
-    ({"adiabatic_rise": 12.0}, "thermal-hazard"),
+    ({"adiabatic_rise": 80.0}, "thermal-hazard"),
     ({"pressure_rise_max": 250e3}, "pressure-build-up"),
 ])
 def test_each_trial_flag_fires_on_its_case(change, code):
@@ -133,7 +133,12 @@ def test_thresholds_come_from_settings():
     assert diagnostics.evaluate(result, Settings(min_r2=0.95)).empty
 
 
-@pytest.mark.parametrize("rise, band", [(12.0, "low"), (120.0, "medium"), (350.0, "high")])
+def test_low_band_rise_is_not_flagged():
+    # Below 50 K (the low band; Stoessel 2008, from memory) the estimate stays in the tables without a flag.
+    assert diagnostics.evaluate(_result([{"adiabatic_rise": 12.0}]), Settings()).empty
+
+
+@pytest.mark.parametrize("rise, band", [(50.0, "medium"), (120.0, "medium"), (350.0, "high")])
 def test_thermal_bands_and_caution(rise, band):
     # Bands: low < 50 K, medium 50-200 K, high > 200 K (Stoessel, Thermal Safety of Chemical Processes, 2008; from
     # memory).
