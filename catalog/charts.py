@@ -1,0 +1,438 @@
+"""Altair chart builders shared by the HTML report and the Streamlit app: DataFrames in, charts out.
+
+Every builder is pure: it takes result tables in SI (``Results.trials`` / ``Results.catalysts`` and long-form trace
+points) and returns an Altair chart; nothing here reads the database or writes files. Units are converted for display
+here, because a chart axis is an edge of the package.
+
+Altair refuses to embed more than 5,000 rows per data set by default, and a browser slows down well before that,
+so trace overlays are thinned to an even subset of each trial's readings and fitted curves are drawn on a short time
+grid; the fits themselves always use every reading.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterable
+
+import altair as alt
+import numpy as np
+import pandas as pd
+
+from catalog import analysis, arrhenius, batch
+from catalog.errors import CatalogError
+from catalog.units import from_si
+
+__all__ = [
+    "MAX_ROWS",
+    "MAX_TRACES",
+    "arrhenius_chart",
+    "enhancement_chart",
+    "pareto_chart",
+    "residual_chart",
+    "tof_bar_chart",
+    "trace_chart",
+]
+
+#: Rows of one data set a chart may carry; Altair's own default limit, kept rather than switched off.
+MAX_ROWS = 5000
+#: More overlaid traces than this cannot be told apart on one plot.
+MAX_TRACES = 40
+#: Points on each fitted curve: enough for a smooth line at screen resolution.
+CURVE_POINTS = 60
+#: Categorical colours for catalysts (Tableau 10: ten hues chosen to stay distinct for common colour-vision types).
+CATEGORY_SCHEME = "tableau10"
+#: Sequential colours for temperature (viridis: ordered in lightness, so it also reads in greyscale).
+TEMPERATURE_SCHEME = "viridis"
+#: Coverage factor of the per-trial error bars: a 95 % normal interval of a single fitted rate.
+_Z95 = 1.959963984540054
+
+_WIDTH = 420
+_HEIGHT = 300
+
+
+def _celsius(T):
+    return from_si(np.asarray(T, dtype=float), "degC")
+
+
+def _pick(frame: pd.DataFrame, ids: Iterable[str] | None) -> pd.DataFrame:
+    """Rows of ``frame`` for ``ids`` in the given order (all rows when None); unknown ids are a user error."""
+    if ids is None:
+        return frame
+    ids = list(ids)
+    missing = [i for i in ids if i not in frame.index]
+    if missing:
+        raise CatalogError(f"no results for: {', '.join(map(str, missing))}")
+    return frame.loc[ids]
+
+
+# ------------------------------------------------------------------------------------------------------ Arrhenius
+
+def arrhenius_frames(trials: pd.DataFrame, catalyst_ids: Iterable[str],
+                     n_grid: int = CURVE_POINTS) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Points and fitted lines of an Arrhenius plot of TOF, one catalyst at a time.
+
+    The fit is rebuilt from the same trials the analysis used (the catalyst's standard series, see
+    ``catalog.analysis``), so the line, its band and the catalyst table agree. Trials outside that series
+    (concentration series, illuminated trials) are returned with ``in_fit`` False.
+
+    Per-trial error bars are :math:`\\ln\\mathrm{TOF} \\pm 1.96\\,\\sigma_\\mathrm{TOF}/\\mathrm{TOF}` (delta method).
+    The band is the 95 % confidence interval of the fitted line from the (ln A, Ea) covariance,
+    :func:`catalog.arrhenius.predict`.
+
+    Parameters
+    ----------
+    trials : DataFrame
+        ``Results.trials`` (indexed by trial_id; needs catalyst_id, temperature, tof, tof_se and the conditions the
+        standard-series choice reads).
+    catalyst_ids : iterable of str
+    n_grid : int
+        Temperatures on each fitted line.
+
+    Returns
+    -------
+    points : DataFrame
+        catalyst_id, trial_id, temperature_c, inv_t (1000/T, 1/K), ln_tof, ln_tof_low, ln_tof_high, in_fit.
+    lines : DataFrame
+        catalyst_id, temperature_c, inv_t, ln_tof, ln_low, ln_high (empty for a catalyst without an Arrhenius fit).
+    """
+    point_parts, line_parts = [], []
+    for cid in catalyst_ids:
+        group = trials[trials["catalyst_id"] == cid]
+        if group.empty:
+            continue
+        T = group["temperature"].to_numpy(float)
+        tof = group["tof"].to_numpy(float)
+        se = group["tof_se"].to_numpy(float)
+        main = analysis.standard_series(group)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            ln_tof = np.log(tof)
+            half = _Z95 * se / tof
+        point_parts.append(pd.DataFrame({
+            "catalyst_id": cid, "trial_id": group.index.to_numpy(), "temperature_c": _celsius(T),
+            "inv_t": 1000.0 / T, "ln_tof": ln_tof, "ln_tof_low": ln_tof - half, "ln_tof_high": ln_tof + half,
+            "in_fit": main}))
+        try:
+            fit = arrhenius.fit_arrhenius(T[main], tof[main], se[main])
+        except (arrhenius.TooFewTemperatures, ValueError):
+            continue
+        grid = np.linspace(fit.t_min, fit.t_max, n_grid)
+        pred = arrhenius.predict(fit, grid)
+        line_parts.append(pd.DataFrame({
+            "catalyst_id": cid, "temperature_c": _celsius(grid), "inv_t": 1000.0 / grid,
+            "ln_tof": np.log(pred.value), "ln_low": np.log(pred.low), "ln_high": np.log(pred.high)}))
+    points = pd.concat(point_parts, ignore_index=True) if point_parts else pd.DataFrame(
+        columns=["catalyst_id", "trial_id", "temperature_c", "inv_t", "ln_tof", "ln_tof_low", "ln_tof_high", "in_fit"])
+    lines = pd.concat(line_parts, ignore_index=True) if line_parts else pd.DataFrame(
+        columns=["catalyst_id", "temperature_c", "inv_t", "ln_tof", "ln_low", "ln_high"])
+    points = points[np.isfinite(points["ln_tof"].to_numpy(float))].reset_index(drop=True)
+    return points, lines
+
+
+def arrhenius_chart(results, catalyst_ids: Iterable[str]) -> alt.LayerChart:
+    """Arrhenius plot of TOF (ln TOF against 1000/T) with per-trial error bars, fitted lines and 95 % bands.
+
+    Filled points are the trials in the fit; open points are trials of the same catalyst kept out of it (another
+    initial concentration or illumination). Blank trials are not drawn: their rate is per vessel, not per site, so
+    it has no place on a TOF axis.
+
+    Parameters
+    ----------
+    results : catalog.results.Results
+    catalyst_ids : iterable of str
+
+    Returns
+    -------
+    altair.LayerChart
+    """
+    ids = list(catalyst_ids)
+    points, lines = arrhenius_frames(results.trials, ids)
+    colour = alt.Color("catalyst_id:N", title="catalyst", scale=alt.Scale(scheme=CATEGORY_SCHEME, domain=ids))
+    x = alt.X("inv_t:Q", title="1000 / T [1/K]", scale=alt.Scale(zero=False))
+    tips = [alt.Tooltip("catalyst_id:N", title="catalyst"), alt.Tooltip("trial_id:N", title="trial"),
+            alt.Tooltip("temperature_c:Q", title="T [°C]", format=".1f"),
+            alt.Tooltip("ln_tof:Q", title="ln TOF", format=".3f"), alt.Tooltip("in_fit:N", title="in fit")]
+    base_points = alt.Chart(points)
+    bars = base_points.mark_rule(opacity=0.6).encode(
+        x=x, y=alt.Y("ln_tof_low:Q", title="ln (TOF / s⁻¹)", scale=alt.Scale(zero=False)), y2="ln_tof_high:Q",
+        color=colour)
+    dots = base_points.mark_point(size=45, strokeWidth=1.5).encode(
+        x=x, y="ln_tof:Q", color=colour,
+        fill=alt.condition("datum.in_fit", colour, alt.value("white")), tooltip=tips)
+    base_lines = alt.Chart(lines)
+    band = base_lines.mark_area(opacity=0.18).encode(x=x, y="ln_low:Q", y2="ln_high:Q", color=colour)
+    fitted = base_lines.mark_line(strokeWidth=1.5).encode(x=x, y="ln_tof:Q", color=colour)
+    return alt.layer(band, fitted, bars, dots).properties(
+        width=_WIDTH, height=_HEIGHT, title="Arrhenius plot of TOF (fit ± 95 % confidence band)")
+
+
+# ------------------------------------------------------------------------------------------------------- traces
+
+def _thin(codes: np.ndarray, per_trial: int) -> np.ndarray:
+    """Boolean mask keeping at most ``per_trial`` evenly spaced readings of each trial (first and last kept)."""
+    keep = np.zeros(len(codes), dtype=bool)
+    starts = np.flatnonzero(np.r_[True, codes[1:] != codes[:-1]])
+    ends = np.r_[starts[1:], len(codes)]
+    for lo, hi in zip(starts, ends):
+        n = hi - lo
+        idx = np.unique(np.round(np.linspace(0, n - 1, min(n, per_trial))).astype(int)) if n else []
+        keep[lo + np.asarray(idx, dtype=int)] = True
+    return keep
+
+
+def trace_frames(trials: pd.DataFrame, points: pd.DataFrame, trial_ids: Iterable[str],
+                 normalise: bool = True) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Measured and fitted progress of each trial, ready to plot, thinned to fit :data:`MAX_ROWS`.
+
+    Amounts come from :func:`catalog.analysis.trace_amounts` and the fitted curves from
+    :func:`catalog.batch.curve_values`; both are shifted by the fitted offset so every trial starts at zero.
+    With ``normalise`` the progress is the conversion :math:`X = (n - a)/n_\\max`; trials without a stoichiometric
+    maximum then have no conversion and are left out. Otherwise it is the amount of product in mmol.
+
+    Parameters
+    ----------
+    trials : DataFrame
+        ``Results.trials`` (indexed by trial_id: conditions and the kinetic fit columns).
+    points : DataFrame
+        Long-form readings ``trial_id, t, value`` in SI, e.g. the third table of ``catalog.store.load_campaign``.
+    trial_ids : iterable of str
+        At most :data:`MAX_TRACES` trials.
+    normalise : bool
+
+    Returns
+    -------
+    observed : DataFrame
+        trial_id, catalyst_id, temperature_c, time_min, progress, residual (data − fit, same unit as progress).
+    fitted : DataFrame
+        trial_id, catalyst_id, temperature_c, time_min, progress.
+
+    Raises
+    ------
+    CatalogError
+        More than :data:`MAX_TRACES` trials, or a trial without results.
+    """
+    ids = list(dict.fromkeys(trial_ids))
+    if len(ids) > MAX_TRACES:
+        raise CatalogError(f"{len(ids)} traces asked for; at most {MAX_TRACES} can be overlaid on one chart")
+    table = _pick(trials, ids)
+    sel = points[points["trial_id"].isin(ids)].sort_values(["trial_id", "t"], kind="stable").reset_index(drop=True)
+    codes, uniques = pd.factorize(sel["trial_id"], sort=False)
+    t = sel["t"].to_numpy(float)
+    fits = table.loc[uniques, ["model", "r0", "k", "plateau", "offset"]].reset_index(drop=True)
+    amount = analysis.trace_amounts(table, sel)
+    model_at_points = batch.curve_values(fits, codes, t)
+    n_max = table.loc[uniques, "n_max"].to_numpy(float) if normalise else None
+
+    def progress(values, trial_codes):
+        shifted = values - fits["offset"].to_numpy(float)[trial_codes]
+        if normalise:
+            with np.errstate(divide="ignore", invalid="ignore"):
+                return shifted / np.where(n_max[trial_codes] > 0, n_max[trial_codes], np.nan)
+        return from_si(shifted, "mmol")
+
+    observed_y = progress(amount, codes)
+    fitted_y = progress(model_at_points, codes)
+    keep = _thin(codes, max(2, MAX_ROWS // max(len(uniques), 1)))
+    info = table.loc[uniques]
+    observed = pd.DataFrame({
+        "trial_id": np.asarray(uniques)[codes], "catalyst_id": info["catalyst_id"].to_numpy()[codes],
+        "temperature_c": _celsius(info["temperature"].to_numpy(float))[codes], "time_min": from_si(t, "min"),
+        "progress": observed_y, "residual": observed_y - fitted_y})[keep]
+    grid_codes = np.repeat(np.arange(len(uniques)), CURVE_POINTS)
+    t_end = sel.groupby(codes)["t"].max().reindex(range(len(uniques))).to_numpy(float)
+    grid_t = (np.linspace(0.0, 1.0, CURVE_POINTS)[None, :] * t_end[:, None]).ravel()
+    fitted = pd.DataFrame({
+        "trial_id": np.asarray(uniques)[grid_codes], "catalyst_id": info["catalyst_id"].to_numpy()[grid_codes],
+        "temperature_c": _celsius(info["temperature"].to_numpy(float))[grid_codes],
+        "time_min": from_si(grid_t, "min"), "progress": progress(batch.curve_values(fits, grid_codes, grid_t),
+                                                                 grid_codes)})
+    observed = observed[np.isfinite(observed["progress"].to_numpy(float))].reset_index(drop=True)
+    fitted = fitted[np.isfinite(fitted["progress"].to_numpy(float))].reset_index(drop=True)
+    return observed, fitted
+
+
+def _progress_title(normalise: bool) -> str:
+    return "conversion" if normalise else "product [mmol]"
+
+
+def _trace_encodings():
+    colour = alt.Color("temperature_c:Q", title="T [°C]", scale=alt.Scale(scheme=TEMPERATURE_SCHEME))
+    tips = [alt.Tooltip("trial_id:N", title="trial"), alt.Tooltip("catalyst_id:N", title="catalyst"),
+            alt.Tooltip("temperature_c:Q", title="T [°C]", format=".1f"),
+            alt.Tooltip("time_min:Q", title="t [min]", format=".2f")]
+    return colour, tips
+
+
+def trace_chart(trials: pd.DataFrame, points: pd.DataFrame, trial_ids: Iterable[str], normalise: bool = True,
+                title: str | None = None) -> alt.LayerChart:
+    """Progress against time for several trials: thinned readings as dots, the chosen rate-law fit as a line.
+
+    Takes pre-loaded points rather than a database, so it stays pure; pass
+    ``catalog.store.load_campaign(db)[2]`` or the concatenated ``load_trace`` frames (with a trial_id column).
+    Colour is the trial temperature; hover a dot for its trial.
+
+    Parameters
+    ----------
+    trials, points, trial_ids, normalise
+        As :func:`trace_frames`.
+    title : str, optional
+
+    Returns
+    -------
+    altair.LayerChart
+    """
+    observed, fitted = trace_frames(trials, points, trial_ids, normalise)
+    colour, tips = _trace_encodings()
+    x = alt.X("time_min:Q", title="time [min]")
+    y_title = _progress_title(normalise)
+    dots = alt.Chart(observed).mark_circle(size=14, opacity=0.55).encode(
+        x=x, y=alt.Y("progress:Q", title=y_title), color=colour, detail="trial_id:N",
+        tooltip=[*tips, alt.Tooltip("progress:Q", title=y_title, format=".4g")])
+    lines = alt.Chart(fitted).mark_line(strokeWidth=1.4).encode(
+        x=x, y="progress:Q", color=colour, detail="trial_id:N", tooltip=tips)
+    return alt.layer(dots, lines).properties(width=_WIDTH, height=_HEIGHT,
+                                             title=title or "Progress with fitted rate law")
+
+
+def residual_chart(trials: pd.DataFrame, points: pd.DataFrame, trial_ids: Iterable[str], normalise: bool = True,
+                   title: str | None = None) -> alt.LayerChart:
+    """Residuals (reading − fitted curve) against time: a fit that suits the data scatters evenly about zero.
+
+    A run of residuals on one side late in the trace suggests deactivation or a wrong rate law; the diagnostics
+    put numbers on both (late-residual and runs tests). Arguments as :func:`trace_chart`.
+
+    Returns
+    -------
+    altair.LayerChart
+    """
+    observed, _ = trace_frames(trials, points, trial_ids, normalise)
+    colour, tips = _trace_encodings()
+    y_title = f"residual ({_progress_title(normalise)})"
+    zero = alt.Chart(pd.DataFrame({"y": [0.0]})).mark_rule(color="grey").encode(y="y:Q")
+    dots = alt.Chart(observed).mark_circle(size=14, opacity=0.6).encode(
+        x=alt.X("time_min:Q", title="time [min]"), y=alt.Y("residual:Q", title=y_title), color=colour,
+        detail="trial_id:N", tooltip=[*tips, alt.Tooltip("residual:Q", title="residual", format=".3g")])
+    return alt.layer(zero, dots).properties(width=_WIDTH, height=_HEIGHT, title=title or "Residuals of the fits")
+
+
+# ---------------------------------------------------------------------------------------------- catalyst figures
+
+def _interval_chart(frame: pd.DataFrame, value: str, low: str, high: str, axis_title: str, log: bool,
+                    title: str, rule_at: float | None = None) -> alt.LayerChart:
+    """Horizontal bars (or dots on a log axis) with 95 % interval whiskers, one row per catalyst, in frame order.
+
+    ``rule_at`` adds a dashed vertical reference line at that value.
+    """
+    order = frame["catalyst_id"].tolist()
+    y = alt.Y("catalyst_id:N", title=None, sort=order)
+    scale = alt.Scale(type="log") if log else alt.Scale(zero=True)
+    x = alt.X(f"{value}:Q", title=axis_title, scale=scale)
+    tips = [alt.Tooltip("catalyst_id:N", title="catalyst"), alt.Tooltip(f"{value}:Q", format=".4g", title="value"),
+            alt.Tooltip(f"{low}:Q", format=".4g", title="95 % low"),
+            alt.Tooltip(f"{high}:Q", format=".4g", title="95 % high"),
+            alt.Tooltip("extrapolated:N", title="extrapolated")]
+    base = alt.Chart(frame)
+    # Bars start at zero, which a log axis does not have: there a dot marks the value instead.
+    mark = base.mark_point(filled=True, size=60) if log else base.mark_bar(opacity=0.75, height=14)
+    # Extrapolated values are drawn paler so the eye does not weigh them like measured ones.
+    body = mark.encode(x=x, y=y, opacity=alt.condition("datum.extrapolated", alt.value(0.35), alt.value(0.85)),
+                       tooltip=tips)
+    whiskers = base.mark_rule(color="black").encode(x=f"{low}:Q", x2=f"{high}:Q", y=y)
+    layers = [body, whiskers]
+    if rule_at is not None:
+        layers.append(alt.Chart(pd.DataFrame({value: [float(rule_at)]})).mark_rule(
+            strokeDash=[4, 3], color="grey").encode(x=f"{value}:Q"))
+    return alt.layer(*layers).properties(width=_WIDTH, height=max(60, 22 * len(frame)), title=title)
+
+
+def tof_bar_chart(catalysts: pd.DataFrame, reference_temperature: float,
+                  catalyst_ids: Iterable[str] | None = None) -> alt.LayerChart:
+    """TOF at the reference temperature with its 95 % interval, one bar per catalyst in the given (rank) order.
+
+    Catalysts without a TOF at the reference temperature are left out rather than drawn at zero.
+
+    Parameters
+    ----------
+    catalysts : DataFrame
+        ``Results.catalysts`` (tof_ref, tof_ref_low, tof_ref_high, tof_ref_extrapolated).
+    reference_temperature : float
+        K, for the axis title.
+    catalyst_ids : iterable of str, optional
+        Which catalysts and in which order (e.g. the ranking's index); all, by id, when None.
+    """
+    rows = _pick(catalysts, catalyst_ids)
+    frame = pd.DataFrame({
+        "catalyst_id": rows.index.to_numpy(), "tof": rows["tof_ref"].to_numpy(float),
+        "tof_low": rows["tof_ref_low"].to_numpy(float), "tof_high": rows["tof_ref_high"].to_numpy(float),
+        "extrapolated": rows["tof_ref_extrapolated"].fillna(False).astype(bool).to_numpy()})
+    frame = frame[np.isfinite(frame["tof"])].reset_index(drop=True)
+    t_ref = float(_celsius(reference_temperature))
+    return _interval_chart(frame, "tof", "tof_low", "tof_high", f"TOF at {t_ref:.1f} °C [1/s]", log=False,
+                           title="TOF at the reference temperature (95 % interval)")
+
+
+def enhancement_chart(catalysts: pd.DataFrame, catalyst_ids: Iterable[str] | None = None,
+                      threshold: float | None = None) -> alt.LayerChart:
+    """Enhancement over the blank at the reference temperature, log axis, with 95 % intervals.
+
+    .. math:: E = \\frac{r_\\mathrm{blank}(T_\\mathrm{ref}) + \\mathrm{TOF}(T_\\mathrm{ref})\\,n_\\mathrm{sites}}
+              {r_\\mathrm{blank}(T_\\mathrm{ref})}
+
+    (computed in ``catalog.analysis``). A dashed rule marks ``threshold`` (e.g. ``Settings.min_enhancement``) when
+    given.
+
+    Parameters
+    ----------
+    catalysts : DataFrame
+        ``Results.catalysts`` (enhancement_ref, enhancement_ref_low, enhancement_ref_high, blank_extrapolated).
+    catalyst_ids : iterable of str, optional
+    threshold : float, optional
+    """
+    rows = _pick(catalysts, catalyst_ids)
+    frame = pd.DataFrame({
+        "catalyst_id": rows.index.to_numpy(), "enhancement": rows["enhancement_ref"].to_numpy(float),
+        "low": rows["enhancement_ref_low"].to_numpy(float), "high": rows["enhancement_ref_high"].to_numpy(float),
+        "extrapolated": rows["blank_extrapolated"].fillna(False).astype(bool).to_numpy()})
+    frame = frame[np.isfinite(frame["enhancement"]) & (frame["enhancement"] > 0)].reset_index(drop=True)
+    return _interval_chart(frame, "enhancement", "low", "high", "enhancement over blank (log scale)", log=True,
+                           title="Enhancement over the blank at the reference temperature (95 % interval)",
+                           rule_at=threshold)
+
+
+def pareto_chart(catalysts: pd.DataFrame, x_metric: str, y_metric: str, front: Iterable[str],
+                 x_title: str | None = None, y_title: str | None = None) -> alt.LayerChart:
+    """Two catalyst figures against each other, the Pareto set highlighted and joined in x order.
+
+    The chart plots what it is given: ``front`` should be the set that is optimal for these two figures (for
+    example the ``pareto`` column of the ranking when it ranked on them). Values are plotted as stored (SI);
+    say the unit in the titles.
+
+    Parameters
+    ----------
+    catalysts : DataFrame
+        Indexed by catalyst_id, with columns ``x_metric`` and ``y_metric``.
+    x_metric, y_metric : str
+        Column names.
+    front : iterable of str
+        Catalyst ids on the Pareto set.
+    x_title, y_title : str, optional
+        Axis titles (default: the column names).
+    """
+    for name in (x_metric, y_metric):
+        if name not in catalysts.columns:
+            raise CatalogError(f"no catalyst figure called '{name}'")
+    on_front = set(front)
+    frame = pd.DataFrame({"catalyst_id": catalysts.index.to_numpy(),
+                          "x": catalysts[x_metric].to_numpy(float), "y": catalysts[y_metric].to_numpy(float)})
+    frame = frame[np.isfinite(frame["x"]) & np.isfinite(frame["y"])].reset_index(drop=True)
+    frame["pareto"] = frame["catalyst_id"].isin(on_front)
+    x = alt.X("x:Q", title=x_title or x_metric, scale=alt.Scale(zero=False))
+    y = alt.Y("y:Q", title=y_title or y_metric, scale=alt.Scale(zero=False))
+    base = alt.Chart(frame)
+    dots = base.mark_point(size=70, strokeWidth=1.5, color="black").encode(
+        x=x, y=y, fill=alt.condition("datum.pareto", alt.value("black"), alt.value("white")),
+        tooltip=[alt.Tooltip("catalyst_id:N", title="catalyst"), alt.Tooltip("x:Q", title=x_title or x_metric,
+                                                                            format=".4g"),
+                 alt.Tooltip("y:Q", title=y_title or y_metric, format=".4g")])
+    labels = base.mark_text(align="left", dx=7, dy=-6, fontSize=10).encode(x=x, y=y, text="catalyst_id:N")
+    path = alt.Chart(frame[frame["pareto"]].sort_values("x")).mark_line(color="black", strokeDash=[3, 2]).encode(
+        x="x:Q", y="y:Q", order="x:Q")
+    return alt.layer(path, dots, labels).properties(width=_WIDTH, height=_HEIGHT, title="Trade-off (filled and joined: Pareto set)")

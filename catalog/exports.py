@@ -1,0 +1,227 @@
+"""The user-facing shortlist table and writing it to CSV, Excel or Parquet.
+
+This is an edge of the package: figures leave SI here, converted with :func:`catalog.units.from_si`, and every
+header says its unit as ``name [unit]``. A figure that could not be computed is an empty cell, never a stand-in
+number.
+"""
+
+from __future__ import annotations
+
+import os
+from dataclasses import asdict
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+from openpyxl import Workbook
+from openpyxl.styles import Font
+from openpyxl.utils import get_column_letter
+
+from catalog import __version__, diagnostics, ranking
+from catalog.errors import CatalogError
+from catalog.hazard import CAUTION
+from catalog.units import from_si
+
+__all__ = ["FORMATS", "REQUIRED_COLUMNS", "flag_codes", "shortlist_table", "write_table"]
+
+#: The columns every shortlist starts with, in this order.
+REQUIRED_COLUMNS = (
+    "rank", "catalyst_id", "tof [1/s]", "tof_low [1/s]", "tof_high [1/s]", "ea [kJ/mol]", "ea_low [kJ/mol]",
+    "ea_high [kJ/mol]", "enhancement", "n_trials", "flags",
+)
+#: File endings :func:`write_table` understands.
+FORMATS = (".csv", ".xlsx", ".parquet")
+
+# Excel column widths, in characters: wide enough for a header, never so wide a note hides the next column.
+_MIN_WIDTH = 8
+_MAX_WIDTH = 48
+
+
+def _display(values, unit: str) -> np.ndarray:
+    return from_si(np.asarray(values, dtype=float), unit)
+
+
+def _t_range(t_min: float, t_max: float) -> str:
+    """Temperatures measured, as '25.0–55.1' in °C; empty when unknown."""
+    if not (np.isfinite(t_min) and np.isfinite(t_max)):
+        return ""
+    low, high = _display([t_min, t_max], "degC")
+    return f"{low:.1f}–{high:.1f}"
+
+
+def shortlist_table(ranked: pd.DataFrame, results, top_k: int, metric: str = "tof") -> pd.DataFrame:
+    """The ranking as users read it: one row per ranked catalyst, best first, with units in the headers.
+
+    Rows follow ``ranked`` (rank order; catalysts without a rank, e.g. excluded ones, come last as the ranking
+    put them). The first columns are :data:`REQUIRED_COLUMNS`; TOF and its 95 % interval are at the reference
+    temperature, ``enhancement`` is over the blank at that temperature. The extras follow: interval ends, rank
+    interval and P(top-k) from the Monte Carlo ranking, the ranking metric and its value, Eyring parameters,
+    normalised rates, TON, site basis, the rate laws chosen for its trials, temperature coverage, exclusion and
+    the ranking's note, metal and support.
+
+    Parameters
+    ----------
+    ranked : DataFrame
+        Output of ``catalog.ranking.rank``: indexed by catalyst_id with rank, value, value_low, value_high,
+        rank_low, rank_high, p_top_k, pareto, excluded, demoted, note.
+    results : catalog.results.Results
+    top_k : int
+        The k of P(top-k); names the column ``p_top{k}``.
+    metric : str
+        Name of the metric the ranking used (a key of ``catalog.ranking.METRICS`` or 'score'); ``metric_value`` and
+        its interval are in that metric's SI unit, named in ``metric_unit``.
+
+    Returns
+    -------
+    DataFrame
+        Plain columns (no index). ``rank``, ``rank_low``, ``rank_high``, ``n_trials`` and ``n_temperatures`` are
+        nullable integers; missing figures are NA / empty strings.
+    """
+    cat = results.catalysts.reindex(ranked.index)
+    T_ref = results.settings.reference_temperature
+
+    def col(name):
+        return cat[name].to_numpy(float) if name in cat.columns else np.full(len(cat), np.nan)
+
+    def count(values):
+        return pd.array(pd.to_numeric(pd.Series(values), errors="coerce").round(), dtype="Int64")
+
+    def text(name):
+        return cat[name].fillna("").astype(str).to_numpy() if name in cat.columns else np.full(len(cat), "")
+
+    out = pd.DataFrame({
+        "rank": count(ranked["rank"].to_numpy(float)),
+        "catalyst_id": ranked.index.astype(str).to_numpy(),
+        "tof [1/s]": col("tof_ref"),
+        "tof_low [1/s]": col("tof_ref_low"),
+        "tof_high [1/s]": col("tof_ref_high"),
+        "ea [kJ/mol]": _display(col("ea"), "kJ/mol"),
+        "ea_low [kJ/mol]": _display(col("ea_low"), "kJ/mol"),
+        "ea_high [kJ/mol]": _display(col("ea_high"), "kJ/mol"),
+        "enhancement": col("enhancement_ref"),
+        "n_trials": count(col("n_trials")),
+        "flags": text("flags"),
+        "enhancement_low": col("enhancement_ref_low"),
+        "enhancement_high": col("enhancement_ref_high"),
+        "tof_extrapolated": cat["tof_ref_extrapolated"].astype("boolean").to_numpy()
+        if "tof_ref_extrapolated" in cat.columns else pd.array([pd.NA] * len(cat), dtype="boolean"),
+        "rank_low": count(ranked["rank_low"].to_numpy(float)),
+        "rank_high": count(ranked["rank_high"].to_numpy(float)),
+        f"p_top{top_k}": ranked["p_top_k"].to_numpy(float),
+        "metric": metric,
+        "metric_unit": ranking.METRICS[metric].unit if metric in ranking.METRICS else "",
+        "metric_value": ranked["value"].to_numpy(float),
+        "metric_low": ranked["value_low"].to_numpy(float),
+        "metric_high": ranked["value_high"].to_numpy(float),
+        "pareto": ranked["pareto"].astype(bool).to_numpy(),
+        "dh [kJ/mol]": _display(col("dh"), "kJ/mol"),
+        "ds [J/(mol K)]": _display(col("ds"), "J/(mol*K)"),
+        "rate_per_mass [mmol/(g h)]": _display(col("rate_per_mass_ref"), "mmol/(g*h)"),
+        "rate_per_area [mmol/(m2 h)]": _display(col("rate_per_area_ref"), "mmol/(m^2*h)"),
+        "ton_max": col("ton_max"),
+        "site_basis": text("site_basis"),
+        "models": text("models"),
+        "n_temperatures": count(col("n_temperatures")),
+        "t_range [degC]": [_t_range(a, b) for a, b in zip(col("t_min"), col("t_max"))],
+        "reference_temperature [degC]": float(_display(T_ref, "degC")),
+        "excluded": ranked["excluded"].astype(bool).to_numpy(),
+        "demoted": ranked["demoted"].astype(bool).to_numpy(),
+        "note": ranked["note"].fillna("").astype(str).to_numpy(),
+        "metal": text("metal"),
+        "support": text("support"),
+    })
+    return out
+
+
+def flag_codes(frame: pd.DataFrame) -> list[str]:
+    """Sorted distinct codes in the table's semicolon-separated ``flags`` column (none without one)."""
+    if "flags" not in frame.columns:
+        return []
+    codes = {c.strip() for cell in frame["flags"].fillna("").astype(str) for c in cell.split(";")}
+    return sorted(c for c in codes if c)
+
+
+def _cell(value):
+    """A value openpyxl can store: NA and NaN become an empty cell, numpy scalars plain Python."""
+    if value is None or (not isinstance(value, str) and pd.isna(value)):
+        return None
+    return value.item() if isinstance(value, np.generic) else value
+
+
+def _write_sheet(sheet, frame: pd.DataFrame) -> None:
+    """Header row bold and frozen, values below, column widths from the longest entry (capped)."""
+    sheet.append([str(c) for c in frame.columns])
+    for row in frame.itertuples(index=False, name=None):
+        sheet.append([_cell(v) for v in row])
+    for cell in sheet[1]:
+        cell.font = Font(bold=True)
+    sheet.freeze_panes = "A2"
+    for i, name in enumerate(frame.columns, start=1):
+        longest = max([len(str(name))] + [len(f"{v:.6g}" if isinstance(v, float) else str(v))
+                                           for v in frame.iloc[:, i - 1].dropna()])
+        sheet.column_dimensions[get_column_letter(i)].width = min(max(longest + 2, _MIN_WIDTH), _MAX_WIDTH)
+
+
+def _settings_rows(results) -> pd.DataFrame:
+    # Flags may carry hazard screening (thermal-hazard and the like), so the caution travels with the workbook.
+    rows = [("software version", __version__), ("safety caution", CAUTION)]
+    if results is not None:
+        rows += [("data stamp", results.data_stamp), ("run key", results.run_key)]
+        rows += [(name, value) for name, value in asdict(results.settings).items()]
+    return pd.DataFrame(rows, columns=["setting", "value"])
+
+
+def _flag_rows(frame: pd.DataFrame) -> pd.DataFrame:
+    rows = []
+    for code in flag_codes(frame):
+        title, explanation = diagnostics.FLAG_CODES.get(code, ("", ""))
+        rows.append((code, title, explanation))
+    return pd.DataFrame(rows, columns=["code", "title", "explanation"])
+
+
+def write_table(frame: pd.DataFrame, path: str | os.PathLike, results=None) -> Path:
+    """Write a table; the format follows the file ending.
+
+    - ``.csv``: UTF-8, no index, empty cells for missing values.
+    - ``.xlsx``: sheet 'table' (bold frozen header, fitted column widths), sheet 'flags' (code, title and
+      explanation of every code in the ``flags`` column) and sheet 'settings' (software version, the safety caution and, when
+      ``results`` is given, the analysis settings, data stamp and run key).
+    - ``.parquet``: via pyarrow, column types kept.
+
+    Parameters
+    ----------
+    frame : DataFrame
+        Written without its index.
+    path : str or PathLike
+    results : catalog.results.Results, optional
+        Source of the settings sheet of an Excel file.
+
+    Returns
+    -------
+    Path
+
+    Raises
+    ------
+    CatalogError
+        Unknown file ending, or the file cannot be written (missing folder, file open elsewhere, no permission).
+    """
+    path = Path(path)
+    suffix = path.suffix.lower()
+    if suffix not in FORMATS:
+        raise CatalogError(f"cannot write '{path.name}': use a file ending in {', '.join(FORMATS)}")
+    try:
+        if suffix == ".csv":
+            frame.to_csv(path, index=False, encoding="utf-8")
+        elif suffix == ".parquet":
+            frame.to_parquet(path, index=False, engine="pyarrow")
+        else:
+            book = Workbook()
+            sheet = book.active
+            sheet.title = "table"
+            _write_sheet(sheet, frame)
+            _write_sheet(book.create_sheet("flags"), _flag_rows(frame))
+            _write_sheet(book.create_sheet("settings"), _settings_rows(results))
+            book.save(path)
+    except OSError as exc:
+        raise CatalogError(f"could not write '{path}': {exc.strerror or exc}") from exc
+    return path
