@@ -71,6 +71,15 @@ class Settings:
         return hashlib.sha256(text.encode()).hexdigest()[:16]
 
 
+#: Trial columns each measurement's conversion reads (named as the converters' keywords).
+_CONDITIONS = {
+    "gas_volume": ("gas_pressure", "gas_temperature"),
+    "mass_loss": ("gas_molar_mass",),
+    "pressure": ("headspace_volume", "temperature"),
+    "concentration": ("liquid_volume",),
+}
+
+
 def trace_amounts(trials: pd.DataFrame, points: pd.DataFrame) -> np.ndarray:
     """Amount of product (mol) at every trace point, relative to the trial's first reading.
 
@@ -78,31 +87,40 @@ def trace_amounts(trials: pd.DataFrame, points: pd.DataFrame) -> np.ndarray:
     working with increments keeps a 31 g tare or a 101 kPa baseline from swamping a milligram signal in the fit.
     The remaining offset (dead volume, drift before the start) is fitted by the rate-law models.
 
+    .. math:: n_i = f_{\\mathrm{kind}}(y_i - y_0;\\ \\text{trial conditions})
+
     Parameters
     ----------
     trials : DataFrame
         Store layout, one row per trial, indexed by ``trial_id``.
     points : DataFrame
-        ``trial_id, t, value`` in SI, sorted by trial and time.
+        ``trial_id, t, value`` in SI, in time order within each trial.
     """
-    first = points.groupby("trial_id", sort=False)["value"].transform("first").to_numpy()
-    delta = points["value"].to_numpy() - first
-    rows = trials.loc[points["trial_id"].to_numpy()]
-    amount = np.full(len(points), np.nan)
+    codes, uniques = pd.factorize(points["trial_id"], sort=False)
+    return _amounts(trials.loc[uniques], codes, points["value"].to_numpy(float))
+
+
+def _amounts(order: pd.DataFrame, codes: np.ndarray, value: np.ndarray) -> np.ndarray:
+    """:func:`trace_amounts` on integer trial codes; ``order`` holds the trial rows in code order.
+
+    Trial conditions are gathered per point by code rather than by label, because a label lookup per point of a
+    campaign-sized trace table dominates the whole analysis.
+    """
+    # pd.factorize numbers codes in order of first appearance, so a point opens its trial's series exactly when its
+    # code exceeds every code before it: the first readings come out in one pass, without sorting.
+    opens = np.ones(len(codes), bool)
+    opens[1:] = codes[1:] > np.maximum.accumulate(codes)[:-1]
+    delta = value - value[np.flatnonzero(opens)][codes]
+    amount = np.full(len(codes), np.nan)
+    kinds = order["measurement"].to_numpy(object)
     for kind in signals.MEASUREMENTS:
-        at = (rows["measurement"] == kind).to_numpy()
+        at = (kinds == kind)[codes]
         if not at.any():
             continue
-        sub = rows[at]
-        conditions = {
-            "gas_volume": dict(gas_pressure=sub["gas_pressure"].to_numpy(float),
-                               gas_temperature=sub["gas_temperature"].to_numpy(float),
-                               over_water=sub["collected_over_water"].fillna(False).to_numpy(bool)),
-            "mass_loss": dict(gas_molar_mass=sub["gas_molar_mass"].to_numpy(float)),
-            "pressure": dict(headspace_volume=sub["headspace_volume"].to_numpy(float),
-                             temperature=sub["temperature"].to_numpy(float)),
-            "concentration": dict(liquid_volume=sub["liquid_volume"].to_numpy(float)),
-        }[kind]
+        sub = codes[at]
+        conditions = {name: order[name].to_numpy(float)[sub] for name in _CONDITIONS[kind]}
+        if kind == "gas_volume":
+            conditions["over_water"] = order["collected_over_water"].fillna(False).to_numpy(bool)[sub]
         # For mass_loss the converter takes the first reading of the array as zero; every trial's increments
         # start at 0, so the whole group can go through in one call.
         amount[at] = signals.to_amount(kind, delta[at], **conditions)
@@ -114,7 +132,7 @@ def fit_all(trials: pd.DataFrame, points: pd.DataFrame) -> pd.DataFrame:
     codes, uniques = pd.factorize(points["trial_id"], sort=False)
     order = trials.loc[uniques]
     n_max = (order["limiting_amount"] * order["product_ratio"]).to_numpy(float)
-    amount = trace_amounts(trials, points)
+    amount = _amounts(order, codes, points["value"].to_numpy(float))
     fits = batch.fit_traces(codes, points["t"].to_numpy(float), amount, n_max)
     fits.index = pd.Index(uniques, name="trial_id")
     return fits[list(TRIAL_FIT_COLUMNS)]
@@ -255,7 +273,7 @@ def catalyst_figures(trial_table: pd.DataFrame, catalysts: pd.DataFrame, blank, 
     blank_ea = blank.ea if blank is not None else np.nan
     for cid, group in catalysed.groupby("catalyst_id", sort=True):
         T = group["temperature"].to_numpy(float)
-        main = _standard_series(group)
+        main = standard_series(group)
         row = {"catalyst_id": cid, "n_trials": len(group), "n_temperatures": len(np.unique(_set_points(T))),
                "n_arrhenius": int(main.sum()), "t_min": float(T.min()), "t_max": float(T.max()),
                "site_basis": "; ".join(sorted(set(group["site_basis"].dropna()))),
@@ -295,7 +313,7 @@ def catalyst_figures(trial_table: pd.DataFrame, catalysts: pd.DataFrame, blank, 
                     how="left")
 
 
-def _standard_series(group: pd.DataFrame) -> np.ndarray:
+def standard_series(group: pd.DataFrame) -> np.ndarray:
     """Trials of one catalyst run at its standard initial concentration: the Arrhenius and replicate set.
 
     TOF of a reaction that is not zero order depends on concentration, so trials of a concentration series would
@@ -405,7 +423,8 @@ def analyse(catalysts: pd.DataFrame, trials: pd.DataFrame, points: pd.DataFrame,
     catalysts = catalysts.set_index("catalyst_id") if "catalyst_id" in catalysts.columns else catalysts
     todo = trials.index if fits is None else trials.index.difference(fits.index)
     if len(todo):
-        fresh = fit_all(trials, points[points["trial_id"].isin(todo)])
+        # A cold start fits every trial: no need to copy a campaign-sized points frame through a filter.
+        fresh = fit_all(trials, points if len(todo) == len(trials) else points[points["trial_id"].isin(todo)])
         fits = fresh if fits is None else pd.concat([fits.loc[fits.index.intersection(trials.index)], fresh])
     else:
         fits = fits.loc[trials.index]

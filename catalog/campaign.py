@@ -203,8 +203,11 @@ def _read_folder(folder: Path) -> CampaignSource:
     with trace_path.open("rb") as handle:
         for block in iter(lambda: handle.read(1 << 20), b""):
             digest.update(block)
-    with trace_path.open("r", encoding="utf-8-sig", newline="") as handle:
-        first = handle.readline()
+    try:
+        with trace_path.open("r", encoding="utf-8-sig", newline="") as handle:
+            first = handle.readline()
+    except UnicodeDecodeError as exc:
+        raise ValidationError([Problem(TRACES_FILE, 1, None, f"not UTF-8 text ({exc.reason} at byte {exc.start})")])
     headers = tuple(h.strip().strip('"') for h in first.rstrip("\r\n").split(","))
     return CampaignSource(
         source=str(folder),

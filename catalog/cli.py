@@ -12,9 +12,11 @@ import sys
 
 import pandas as pd
 
-from catalog import __version__, store
+from catalog import __version__, diagnostics, exports, hazard, ranking, report, results, store
+from catalog.analysis import Settings
 from catalog.campaign import read_source
 from catalog.errors import CatalogError
+from catalog.units import UnitProblem, parse_temperature
 
 EXIT_USER_ERROR = 2
 EXIT_INTERNAL = 3
@@ -80,6 +82,172 @@ def cmd_imports(args: argparse.Namespace) -> int:
     return 0
 
 
+#: Record kinds as typed on the command line, and the store table each names.
+_RECORD_TABLES = {"trial": "trials", "catalyst": "catalysts"}
+
+
+def _say_change(change: store.Change) -> None:
+    noun = change.table.removesuffix("s")
+    print(f"change #{change.change_id} recorded: {noun} '{change.record_id}', {change.column}: "
+          f"{change.old_value if change.old_value is not None else '(empty)'} -> "
+          f"{change.new_value if change.new_value is not None else '(empty)'}")
+
+
+def cmd_correct(args: argparse.Namespace) -> int:
+    change = store.correct(args.db, _RECORD_TABLES[args.kind], args.id, args.column, args.value,
+                           who=args.who, reason=args.reason)
+    _say_change(change)
+    print("(numbers are shown as stored, in SI units)")
+    return 0
+
+
+def cmd_exclude(args: argparse.Namespace) -> int:
+    _say_change(store.exclude(args.db, _RECORD_TABLES[args.kind], args.id, who=args.who, reason=args.reason))
+    return 0
+
+
+def cmd_include(args: argparse.Namespace) -> int:
+    _say_change(store.include(args.db, _RECORD_TABLES[args.kind], args.id, who=args.who, reason=args.reason))
+    return 0
+
+
+def cmd_history(args: argparse.Namespace) -> int:
+    changes = store.history(args.db, args.id)
+    if changes.empty:
+        print("no changes recorded" + (f" for '{args.id}'" if args.id else ""))
+        return 0
+    shown = changes.rename(columns={"change_id": "#", "table_name": "table", "record_id": "id", "column_name": "column",
+                                    "old_value": "was", "new_value": "now", "changed_by": "by", "changed_at": "when (UTC)"})
+    # A purged record's JSON can be long; the full text stays in the database.
+    for column in ("was", "now", "reason"):
+        shown[column] = shown[column].fillna("").str.slice(0, 60)
+    with pd.option_context("display.max_rows", None, "display.width", 200, "display.max_colwidth", 62):
+        print(shown.to_string(index=False))
+    return 0
+
+
+def cmd_purge(args: argparse.Namespace) -> int:
+    if not args.yes:
+        if not sys.stdin.isatty():
+            raise CatalogError("purge deletes for good; with no terminal to ask on, confirm with --yes")
+        typed = input(f"purge deletes {args.kind} '{args.id}' for good (exclude can be undone); "
+                      "type the id to confirm: ")
+        if typed.strip() != args.id:
+            raise CatalogError("the id typed does not match; nothing deleted")
+    _say_change(store.purge(args.db, _RECORD_TABLES[args.kind], args.id, who=args.who, reason=args.reason))
+    return 0
+
+
+def cmd_backup(args: argparse.Namespace) -> int:
+    manifest = store.backup(args.db, args.folder)
+    print(f"backup of {manifest['source']} written to {args.folder}: "
+          + ", ".join(f"{name} {n}" for name, n in manifest["tables"].items()))
+    return 0
+
+
+def cmd_restore(args: argparse.Namespace) -> int:
+    manifest = store.restore(args.folder, args.db, force=args.force)
+    print(f"{store.resolve_path(args.db)} restored from the backup of {manifest['created_at']} (UTC): "
+          + ", ".join(f"{name} {n}" for name, n in manifest["tables"].items()))
+    return 0
+
+
+def _settings(args: argparse.Namespace) -> Settings:
+    try:
+        kelvin = parse_temperature(args.temperature)
+    except UnitProblem as exc:
+        raise CatalogError(f"--temperature: {exc}") from exc
+    return Settings(reference_temperature=kelvin)
+
+
+def _codes(text: str | None) -> tuple[str, ...]:
+    return tuple(c.strip() for c in (text or "").replace(";", ",").split(",") if c.strip())
+
+
+def _weights(text: str | None) -> dict[str, float] | None:
+    if not text:
+        return None
+    weights = {}
+    for part in text.split(","):
+        name, _, value = part.partition("=")
+        try:
+            weights[name.strip()] = float(value) if value.strip() else 1.0
+        except ValueError as exc:
+            raise CatalogError(f"--weights: '{part}' is not NAME=NUMBER (e.g. tof=2,enhancement=1)") from exc
+    unknown = set(weights) - set(ranking.METRICS)
+    if unknown:
+        raise CatalogError(f"--weights: unknown metric(s) {', '.join(sorted(unknown))}; "
+                           f"choose from {', '.join(ranking.METRICS)}")
+    return weights
+
+
+def _ranked(args: argparse.Namespace):
+    settings = _settings(args)
+    found = results.get_results(args.db, settings, progress=None if args.quiet else _progress)
+    if found.catalysts.empty:
+        raise CatalogError(f"{store.resolve_path(args.db)}: no catalysed trials to rank yet")
+    if args.metric not in (*ranking.METRICS, "score"):
+        raise CatalogError(f"--metric: '{args.metric}' is not one of {', '.join((*ranking.METRICS, 'score'))}")
+    weights = _weights(args.weights)
+    if args.metric == "score" and not weights:
+        raise CatalogError("--metric score needs --weights, e.g. --weights tof=2,enhancement=1")
+    ranked = ranking.rank(found.catalysts, metric=args.metric, weights=weights, top_k=args.top,
+                          exclude_flags=_codes(args.exclude), demote_flags=_codes(args.demote),
+                          n_draws=args.draws, seed=args.seed)
+    return found, ranked
+
+
+def cmd_rank(args: argparse.Namespace) -> int:
+    found, ranked = _ranked(args)
+    table = exports.shortlist_table(ranked, found, args.top, metric=args.metric)
+    shown = table[[c for c in _screen_columns(args.top) if c in table.columns]]
+    with pd.option_context("display.max_rows", None, "display.width", 220, "display.max_colwidth", 40):
+        print(shown.to_string(index=False, na_rep="", float_format=lambda v: f"{v:.4g}"))
+    print(f"\nreference temperature {found.settings.reference_temperature - 273.15:.2f} °C; metric {args.metric}; "
+          f"95 % intervals; P(top {args.top}) from {args.draws} Monte Carlo draws (seed {args.seed})")
+    flagged = found.flags[found.flags["scope"] == "catalyst"]
+    if not flagged.empty:
+        print("flags (warnings, never hidden): " + "; ".join(
+            f"{code} = {diagnostics.FLAG_CODES.get(code, (code,))[0]}" for code in sorted(set(flagged["code"]))))
+    if (found.trials.get("hazard_band", pd.Series(dtype=object)).isin(["medium", "high"]).any()
+            or found.trials.get("pressure_rise_max", pd.Series(dtype=float)).notna().any()):
+        print(f"caution: {hazard.CAUTION}")
+    if args.out:
+        path = exports.write_table(table, args.out, results=found)
+        print(f"shortlist written to {path}")
+    return 0
+
+
+def _screen_columns(top: int) -> list[str]:
+    """Columns printed on the terminal (the files carry every column)."""
+    return ["rank", "catalyst_id", "tof [1/s]", "tof_low [1/s]", "tof_high [1/s]", "ea [kJ/mol]", "ea_low [kJ/mol]",
+            "ea_high [kJ/mol]", "enhancement", "rank_low", "rank_high", f"p_top{top}", "n_trials", "flags"]
+
+
+def cmd_analyse(args: argparse.Namespace) -> int:
+    found = results.get_results(args.db, _settings(args), progress=None if args.quiet else _progress)
+    state = "computed now" if found.computed else "read from the cache (data and settings unchanged)"
+    print(f"{len(found.trials)} trials and {len(found.catalysts)} catalysts analysed; results {state}")
+    if found.blank:
+        b = found.blank
+        print(f"blank (uncatalysed) model: Ea = {b['ea'] / 1e3:.1f} kJ/mol "
+              f"[{b['ea_low'] / 1e3:.1f}, {b['ea_high'] / 1e3:.1f}] from {b['n']} trials, "
+              f"{b['t_min'] - 273.15:.1f}-{b['t_max'] - 273.15:.1f} °C")
+    else:
+        print("no blank model: enhancement over the blank and blank-corrected TOF need uncatalysed trials at two or more temperatures")
+    counts = found.flags.groupby(["scope", "code"]).size()
+    for (scope, code), n in counts.items():
+        print(f"  {scope} flag {code}: {n}")
+    return 0
+
+
+def cmd_report(args: argparse.Namespace) -> int:
+    found, ranked = _ranked(args)
+    path = report.write_report(args.db, args.out, found.settings, ranked=ranked, top_k=args.top, metric=args.metric)
+    print(f"report written to {path} (self-contained; opens offline)")
+    return 0
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="catalog",
@@ -104,6 +272,69 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--catalyst", help="only this catalyst")
 
     add("imports", cmd_imports, "list the imports with their provenance")
+
+    def record_arguments(p: argparse.ArgumentParser) -> None:
+        p.add_argument("kind", choices=list(_RECORD_TABLES), help="what to change: trial or catalyst")
+        p.add_argument("id", help="the trial or catalyst id")
+
+    def change_arguments(p: argparse.ArgumentParser) -> None:
+        p.add_argument("--reason", help="why, recorded in the history")
+        p.add_argument("--who", help="name recorded with the change (default: your login name)")
+
+    p = add("correct", cmd_correct, "correct one value of a trial or catalyst; the old value stays in the history")
+    record_arguments(p)
+    p.add_argument("column", help="column name as in the import files, e.g. temperature, catalyst_mass, notes")
+    p.add_argument("value", help="new value as typed in an import cell, e.g. '35 degC', '12.5 mg'; '' clears it")
+    change_arguments(p)
+
+    p = add("exclude", cmd_exclude, "leave a trial or catalyst out of analysis (undo with include)")
+    record_arguments(p)
+    change_arguments(p)
+
+    p = add("include", cmd_include, "take an excluded trial or catalyst back into analysis")
+    record_arguments(p)
+    change_arguments(p)
+
+    p = add("history", cmd_history, "list recorded corrections, exclusions and purges")
+    p.add_argument("id", nargs="?", help="only changes to this trial or catalyst")
+
+    p = add("purge", cmd_purge, "delete a trial (with its trace) or an unused catalyst for good; asks first")
+    record_arguments(p)
+    change_arguments(p)
+    p.add_argument("--yes", action="store_true", help="do not ask for confirmation")
+
+    p = add("backup", cmd_backup, "write a consistent copy of the database into a new folder")
+    p.add_argument("folder", help="new or empty folder for the backup")
+
+    p = add("restore", cmd_restore, "rebuild the database file from a backup folder")
+    p.add_argument("folder", help="folder written by 'catalog backup'")
+    p.add_argument("--force", action="store_true", help="replace a database that already holds data")
+
+    def analysis_options(p: argparse.ArgumentParser) -> None:
+        p.add_argument("--temperature", "-T", default="35",
+                       help="reference temperature: a number in °C, or with a unit such as '310 K' (default 35)")
+        p.add_argument("--quiet", action="store_true", help="no progress messages")
+
+    p = add("analyse", cmd_analyse, "fit every trace and cache the figures (rank and report do this when needed)")
+    analysis_options(p)
+
+    for name, func, help_text in (
+        ("rank", cmd_rank, "rank the catalysts and optionally write the shortlist (.csv, .xlsx or .parquet)"),
+        ("report", cmd_report, "write a self-contained HTML report of the ranking, fits and flags"),
+    ):
+        p = add(name, func, help_text)
+        analysis_options(p)
+        p.add_argument("--metric", default="tof",
+                       help="what to rank by: tof, enhancement, ea, ton, rate_per_mass, rate_per_area, cost, "
+                            "or score (weighted, needs --weights); default tof")
+        p.add_argument("--weights", help="for --metric score: NAME=WEIGHT pairs, e.g. tof=2,enhancement=1")
+        p.add_argument("--top", type=int, default=3, help="size of the shortlist for P(top k) (default 3)")
+        p.add_argument("--exclude", help="flag codes that exclude a catalyst from the ranking (comma-separated)")
+        p.add_argument("--demote", help="flag codes that move a catalyst below all unflagged ones")
+        p.add_argument("--draws", type=int, default=4000, help="Monte Carlo draws for rank intervals (default 4000)")
+        p.add_argument("--seed", type=int, default=20261201, help="Monte Carlo seed (default 20261201)")
+        p.add_argument("--out", required=(name == "report"),
+                       help="output file; the extension picks the format" if name == "rank" else "HTML file to write")
     return parser
 
 

@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import contextlib
 import getpass
+import json
 import os
 import re
 import time
@@ -31,11 +32,13 @@ from catalog.campaign import (
     CATALYST_COLUMNS,
     TRIAL_COLUMNS,
     CampaignSource,
+    RawTable,
     check_catalysts,
     check_trials,
     trace_layout,
 )
 from catalog.errors import CatalogError, DatabaseBusyError, Problem, ValidationError
+from catalog.units import from_si
 
 DEFAULT_DB = "catalog.duckdb"
 ENV_DB = "CATALOG_DB"
@@ -211,15 +214,15 @@ def connect(db: str | os.PathLike | None = None, *, read_only: bool = False, wai
         con.close()
 
 
-def migrate(con: duckdb.DuckDBPyConnection) -> list[int]:
-    """Apply every migration not yet recorded; return the versions applied now."""
+def migrate(con: duckdb.DuckDBPyConnection, upto: int | None = None) -> list[int]:
+    """Apply every migration not yet recorded (up to version ``upto``, if given); return the versions applied now."""
     con.execute(
         "CREATE TABLE IF NOT EXISTS schema_migrations (version INTEGER PRIMARY KEY, name VARCHAR, applied_at TIMESTAMP)"
     )
     done = {row[0] for row in con.execute("SELECT version FROM schema_migrations").fetchall()}
     applied = []
     for version, name, sql in MIGRATIONS:
-        if version in done:
+        if version in done or (upto is not None and version > upto):
             continue
         with transaction(con):
             con.execute(sql)
@@ -342,8 +345,10 @@ def import_campaign(
 
         new_trial_frame = new_trial_frame.reset_index(drop=True)
         stage.register("new_trials", pd.DataFrame({"trial_id": new_trial_frame["trial_id"]}))
+        # Without skipped trials every staged row is written: counting them needs no join.
         n_points = stage.execute(
-            "SELECT count(*) FROM points WHERE trial_id IN (SELECT trial_id FROM new_trials)"
+            "SELECT count(*) FROM points WHERE trial_id IN (SELECT trial_id FROM new_trials)" if skipped_trials
+            else "SELECT count(*) FROM typed"
         ).fetchone()[0]
         say(f"writing {len(new_catalysts)} catalysts, {len(new_trial_frame)} trials, {n_points} points")
         import_id = _write(stage, path, source, new_catalysts, new_trial_frame, n_points,
@@ -392,39 +397,135 @@ def _same_value(a, b) -> bool:
     return a == b
 
 
+#: Checks of the staged ``typed`` rows: condition on (line, trial_id, time_num, value_num), column, message.
+_TRACE_FAULTS = (
+    ("trial_id IS NULL OR trial_id = ''", "trial_id", "trial_id is empty"),
+    ("time_num IS NULL OR NOT isfinite(time_num)", "time", "time {time_text!r} is not a finite number"),
+    ("value_num IS NULL OR NOT isfinite(value_num)", "value", "value {value_text!r} is not a finite number"),
+    ("trial_id <> '' AND trial_id NOT IN (SELECT trial_id FROM factors)", "trial_id",
+     "trial '{trial_id}' is not in the trials table of this campaign"),
+)
+#: Staged rows whose time is not above the previous reading of the same trial, in file order.
+_NOT_INCREASING = """
+    SELECT * FROM (SELECT *, lag(time_num) OVER (PARTITION BY trial_id ORDER BY line) AS previous FROM typed)
+    WHERE time_num <= previous
+"""
+
+
 def _stage_traces(
     stage: duckdb.DuckDBPyConnection, source: CampaignSource, trials: pd.DataFrame
 ) -> tuple[list[Problem], list[str]]:
-    """Load the trace table into the staging database as text, check it set-wise, build SI points.
+    """Load the trace table into the staging database, check it set-wise, and define the SI points.
 
-    Creates the staging table ``points(trial_id, t, value)`` in SI for every trial of this import.
+    A CSV file is first read with typed columns, which is all a clean file costs; only when that read fails or a
+    check finds a fault (bad cell, time not increasing, unknown trial, trial without points) is it read again as
+    text, so that each fault is reported with its line and its text as written. Defines the staging view
+    ``points(trial_id, t, value)`` in SI for every trial of this import.
     """
     names, time_scale, problems, notes = trace_layout(source.traces)
     label = source.traces.label
     if problems:
         return problems, notes
-    order = [name for header in source.traces.headers for name, h in names.items() if h == header]
-    try:
-        if source.traces.csv_path is not None:
-            # Every column is read as text so a bad cell becomes a located problem, not a parse failure.
-            columns = [n if n in names else f"unused_{i}" for i, n in enumerate(_canonical(source.traces.headers, names))]
-            stage.execute(
-                "CREATE TABLE raw AS SELECT * FROM read_csv(?, header = true, all_varchar = true, names = ?)",
-                [str(source.traces.csv_path), columns],
-            )
-        else:
-            frame = source.traces.frame.rename(columns={h: n for n, h in names.items()})
-            stage.register("raw_frame", frame[order])
-            stage.execute("CREATE TABLE raw AS SELECT * FROM raw_frame")
-    except duckdb.Error as exc:
-        return [Problem(label, None, None, f"cannot be read as CSV: {_first_line(exc)}")], notes
-
-    factors = pd.DataFrame({
+    stage.register("factors", pd.DataFrame({
         "trial_id": trials["trial_id"],
         "scale": trials["signal_scale"],
         "shift": trials["signal_shift"],
-    }).dropna(subset=["trial_id"])
-    stage.register("factors", factors)
+        "time_scale": time_scale,
+    }).dropna(subset=["trial_id"]))
+    if not (source.traces.csv_path is not None and _stage_typed(stage, source, names)):
+        try:
+            _stage_text(stage, source, names)
+        except duckdb.Error as exc:
+            return [Problem(label, None, None, f"cannot be read as CSV: {_first_line(exc)}")], notes
+        for condition, column, message in _TRACE_FAULTS:
+            problems += _located(stage, f"SELECT line, trial_id, time_text, value_text FROM typed WHERE {condition}",
+                                 label, names[column], message)
+        problems += _located(stage, f"SELECT line, trial_id, time_text, value_text FROM ({_NOT_INCREASING})",
+                             label, names["time"], "time {time_text} does not increase within trial '{trial_id}'")
+        empty = stage.execute(
+            "SELECT trial_id FROM factors WHERE trial_id NOT IN (SELECT DISTINCT trial_id FROM typed) ORDER BY trial_id"
+        ).fetchall()
+        trial_rows = {t: i + 2 for i, t in enumerate(trials["trial_id"])}
+        problems += [Problem(source.trials.label, trial_rows.get(t), "trial_id", f"trial '{t}' has no trace points in {label}")
+                     for (t,) in empty]
+    if problems:
+        return problems, notes
+    # A view, not a table: the points are read once more by the final write, so they are never held twice. With
+    # DuckDB's default preserve_insertion_order the join keeps the file's row order.
+    stage.execute(
+        """
+        CREATE VIEW points AS
+        SELECT p.trial_id, p.time_num * f.time_scale AS t, p.value_num * f.scale + f.shift AS value
+        FROM typed p JOIN factors f USING (trial_id)
+        """
+    )
+    return problems, notes
+
+
+def _csv_names(source: CampaignSource, names: dict[str, str]) -> list[str]:
+    """Column names for DuckDB's CSV reader: the format's names, ``unused_<i>`` for columns outside it."""
+    return [n if n in names else f"unused_{i}" for i, n in enumerate(_canonical(source.traces.headers, names))]
+
+
+def _stage_typed(stage: duckdb.DuckDBPyConnection, source: CampaignSource, names: dict[str, str]) -> bool:
+    """Stage the trace CSV with numeric time and value columns; False (nothing staged) unless it is all clean.
+
+    The faults are only counted here; locating them is left to the text path, which alone keeps each cell's text
+    for the message.
+    """
+    columns = _csv_names(source, names)
+    types = ["DOUBLE" if n in ("time", "value") else "VARCHAR" for n in columns]
+    try:
+        stage.execute("CREATE TABLE raw AS SELECT * FROM read_csv(?, header = true, names = ?, types = ?)",
+                      [str(source.traces.csv_path), columns, types])
+    except duckdb.Error:
+        return False
+    stage.execute(
+        "CREATE VIEW typed AS SELECT rowid + 2 AS line, trim(trial_id) AS trial_id, time AS time_num, "
+        "value AS value_num FROM raw"
+    )
+    cells = " OR ".join(f"({c})" for c, _, _ in _TRACE_FAULTS[:3])
+    # One streaming scan counts the bad cells and the times that do not increase. Lag over the rows as they come is
+    # far cheaper than a window per trial, and exact when they came in file order (checked: consecutive lines) and
+    # each trial's rows are contiguous (runs = trials); otherwise the window per trial decides.
+    shuffled, runs, n_trials, faults = stage.execute(
+        f"""
+        SELECT count(*) FILTER (line <> previous_line + 1), count(*) FILTER (trial_id IS DISTINCT FROM previous_trial),
+               count(DISTINCT trial_id),
+               count(*) FILTER (({cells}) OR (trial_id = previous_trial AND time_num <= previous_time))
+        FROM (SELECT *, lag(line) OVER () AS previous_line, lag(trial_id) OVER () AS previous_trial,
+                     lag(time_num) OVER () AS previous_time FROM typed)
+        """
+    ).fetchone()
+    if not faults and (shuffled or runs != n_trials):
+        faults = stage.execute(f"SELECT count(*) FROM ({_NOT_INCREASING})").fetchone()[0]
+    if not faults:
+        # Ids are matched once each, not once per row: every id in the file is a trial and every trial has points.
+        matched, expected = stage.execute(
+            "SELECT count(*), (SELECT count(*) FROM factors) FROM factors "
+            "WHERE trial_id IN (SELECT DISTINCT trial_id FROM typed)"
+        ).fetchone()
+        faults = matched != n_trials or matched != expected
+    if faults:
+        stage.execute("DROP VIEW typed")
+        stage.execute("DROP TABLE raw")
+        return False
+    return True
+
+
+def _stage_text(stage: duckdb.DuckDBPyConnection, source: CampaignSource, names: dict[str, str]) -> None:
+    """Stage the trace table as text, with the parsed numbers beside it, as the table ``typed``."""
+    if source.traces.csv_path is not None:
+        # Every column is read as text so a bad cell becomes a located problem, not a parse failure.
+        stage.execute(
+            "CREATE TABLE raw AS SELECT * FROM read_csv(?, header = true, all_varchar = true, names = ?)",
+            [str(source.traces.csv_path), _csv_names(source, names)],
+        )
+    else:
+        order = [name for header in source.traces.headers for name, h in names.items() if h == header]
+        frame = source.traces.frame.rename(columns={h: n for n, h in names.items()})
+        stage.register("raw_frame", frame[order])
+        stage.execute("CREATE TABLE raw AS SELECT * FROM raw_frame")
     stage.execute(
         """
         CREATE TABLE typed AS
@@ -434,45 +535,6 @@ def _stage_traces(
         """
     )
     stage.execute("DROP TABLE raw")
-    checks = [
-        ("trial_id IS NULL OR trial_id = ''", names["trial_id"], "trial_id is empty"),
-        ("time_num IS NULL OR NOT isfinite(time_num)", names["time"], "time {time_text!r} is not a finite number"),
-        ("value_num IS NULL OR NOT isfinite(value_num)", names["value"], "value {value_text!r} is not a finite number"),
-        ("trial_id <> '' AND trial_id NOT IN (SELECT trial_id FROM factors)", names["trial_id"],
-         "trial '{trial_id}' is not in the trials table of this campaign"),
-    ]
-    for condition, header, message in checks:
-        problems += _located(stage, f"SELECT line, trial_id, time_text, value_text FROM typed WHERE {condition}",
-                             label, header, message)
-    problems += _located(
-        stage,
-        """
-        SELECT line, trial_id, time_text, value_text FROM (
-            SELECT line, trial_id, time_text, value_text, time_num,
-                   lag(time_num) OVER (PARTITION BY trial_id ORDER BY line) AS previous
-            FROM typed) WHERE time_num <= previous
-        """,
-        label, names["time"], "time {time_text} does not increase within trial '{trial_id}'",
-    )
-    empty = stage.execute(
-        "SELECT trial_id FROM factors WHERE trial_id NOT IN (SELECT trial_id FROM typed) ORDER BY trial_id"
-    ).fetchall()
-    trial_rows = {t: i + 2 for i, t in enumerate(trials["trial_id"])}
-    problems += [Problem(source.trials.label, trial_rows.get(t), "trial_id", f"trial '{t}' has no trace points in {label}")
-                 for (t,) in empty]
-    if problems:
-        return problems, notes
-    stage.execute(
-        """
-        CREATE TABLE points AS
-        SELECT p.trial_id, p.time_num * ? AS t, p.value_num * f.scale + f.shift AS value
-        FROM typed p JOIN factors f USING (trial_id)
-        ORDER BY p.line
-        """,
-        [time_scale],
-    )
-    stage.execute("DROP TABLE typed")
-    return problems, notes
 
 
 def _canonical(headers: tuple[str, ...], names: dict[str, str]) -> list[str]:
@@ -709,3 +771,460 @@ def load_run(db: str | os.PathLike | None, run_key: str) -> dict | None:
         for table in ("catalyst_results", "flags"):
             out[table] = con.execute(f"SELECT * EXCLUDE (run_key) FROM {table} WHERE run_key = ?", [run_key]).df()
     return out
+
+
+# --------------------------------------------------------------------------------------------------- corrections
+
+#: Tables that take corrections, with their key and column contract. Table and column names put into correction
+#: SQL come only from here, never from the caller.
+_RECORDS = {
+    "trials": ("trial_id", TRIAL_COLUMNS),
+    "catalysts": ("catalyst_id", CATALYST_COLUMNS),
+}
+#: Trial columns fixed at import: the stored trace points were converted to SI with them, so a change would leave the
+#: points meaning something else.
+_FIXED_AT_IMPORT = ("measurement", "signal_unit")
+#: A number optionally followed by a unit, bracketed or not: "35 degC", "12.5 [mg]", "-3e-2".
+_NUMBER_AND_UNIT = re.compile(
+    r"^\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*\[?\s*((?:[A-Za-z%°µμ℃][^\[\]]*?)?)\s*\]?\s*$")
+#: History column name of a purge row, whose old value is the whole record as JSON.
+PURGED = "(record)"
+
+
+@dataclass(frozen=True)
+class Change:
+    """One row written to the history: a correction, exclusion, inclusion or purge.
+
+    Values are the canonical text of the stored SI value (see :func:`history`).
+    """
+
+    change_id: int
+    table: str
+    record_id: str
+    column: str
+    old_value: str | None
+    new_value: str | None
+
+
+def _record_spec(table: str):
+    if table not in _RECORDS:
+        raise CatalogError(f"'{table}' takes no corrections; choose one of: {', '.join(_RECORDS)}")
+    return _RECORDS[table]
+
+
+def _noun(table: str) -> str:
+    return table.removesuffix("s")
+
+
+def _stored_row(con, table: str, key: str, record_id: str) -> dict:
+    frame = con.execute(f"SELECT * FROM {table} WHERE {key} = ?", [record_id]).df()
+    if frame.empty:
+        raise CatalogError(f"no {_noun(table)} '{record_id}' in the database")
+    return frame.iloc[0].to_dict()
+
+
+def _as_text(value) -> str | None:
+    """Canonical text of a stored value: shortest round-trip float, ISO 8601 time, true/false; None when missing."""
+    if value is None or (not isinstance(value, str) and pd.isna(value)):
+        return None
+    if isinstance(value, (bool, np.bool_)):
+        return "true" if value else "false"
+    if isinstance(value, (float, np.floating)):
+        return repr(float(value))
+    if isinstance(value, (pd.Timestamp, datetime)):
+        return pd.Timestamp(value).isoformat()
+    return str(value)
+
+
+def _cell_text(value, column) -> str:
+    """A stored SI value written back as an import cell in the column's reference unit."""
+    text = _as_text(value)
+    if text is None:
+        return ""
+    if column.kind == "number" and column.unit is not None:
+        return repr(float(from_si(float(value), column.unit)))
+    return text
+
+
+def _correction_cell(column, value_text: str) -> tuple[str, str]:
+    """Header and cell for a corrected value, so it is read exactly like an import cell with that header."""
+    match = _NUMBER_AND_UNIT.match(value_text) if column.kind == "number" else None
+    if match is None or not match.group(2):
+        # Text, a plain number in the reference unit, or something unreadable that the cell check will name.
+        return column.name, value_text
+    return f"{column.name} [{match.group(2)}]", match.group(1)
+
+
+def _check_record(table: str, columns, stored: dict, known: set[str], label: str,
+                  override: tuple[str, str, str] | None = None):
+    """Run the import checks over one stored record rebuilt as a one-row table, optionally with one cell replaced."""
+    headers, cells = [], []
+    for column in columns:
+        if override is not None and column.name == override[0]:
+            headers.append(override[1])
+            cells.append(override[2])
+        else:
+            headers.append(column.name)
+            cells.append(_cell_text(stored[column.name], column))
+    raw = RawTable(label, pd.DataFrame([cells], columns=headers, dtype=str))
+    return check_catalysts(raw) if table == "catalysts" else check_trials(raw, known)
+
+
+def _record_change(con, table: str, record_id: str, column: str, old: str | None, new: str | None,
+                   who: str | None, reason: str | None) -> Change:
+    change_id = int(con.execute("SELECT coalesce(max(change_id), 0) + 1 FROM history").fetchone()[0])
+    con.execute("INSERT INTO history VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                [change_id, table, record_id, column, old, new, who or _user(), _now(), reason])
+    return Change(change_id, table, record_id, column, old, new)
+
+
+def _bound(value):
+    """A checked cell as a value DuckDB binds: Python scalars, None for missing."""
+    if value is None or (not isinstance(value, str) and pd.isna(value)):
+        return None
+    if isinstance(value, pd.Timestamp):
+        return value.to_pydatetime()
+    if isinstance(value, (np.generic,)):
+        return value.item()
+    return value
+
+
+def correct(db: str | os.PathLike | None, table: str, record_id: str, column: str, value_text: str,
+            who: str | None = None, reason: str | None = None) -> Change:
+    """Correct one value of a trial or catalyst, keeping the previous value, who and when in the history.
+
+    ``value_text`` is read like an import cell of that column: a number with an optional unit (``"35 degC"``,
+    ``"12.5 mg"``; without a unit the column's reference unit), text, true/false or an ISO 8601 time; an empty
+    text clears an optional value. The whole record is re-checked with the import rules, so a correction cannot
+    store what an import would refuse. Correcting a trial drops its cached kinetic fit so it is refitted.
+
+    Parameters
+    ----------
+    db : path-like or None
+        Database file (see :func:`resolve_path`).
+    table : {"trials", "catalysts"}
+    record_id : str
+        The trial or catalyst id.
+    column : str
+        A column of the import contract (:data:`catalog.campaign.TRIAL_COLUMNS` or ``CATALYST_COLUMNS``), not the id.
+    value_text : str
+        The new value as it would be typed in an import cell.
+    who, reason : str, optional
+        Recorded with the change; ``who`` defaults to the login name.
+
+    Returns
+    -------
+    Change
+        The history row written.
+
+    Raises
+    ------
+    CatalogError
+        Unknown table, record or column, an id column, a column fixed at import, or a value equal to the stored one.
+    ValidationError
+        The value breaks an import rule; nothing was written.
+    """
+    key, columns = _record_spec(table)
+    spec = {c.name: c for c in columns}
+    if column == key:
+        raise CatalogError(f"the id of a {_noun(table)} cannot be changed; import the record under the new id and "
+                           "purge the old one")
+    if column not in spec:
+        raise CatalogError(f"'{column}' is not a correctable column of {table}; choose one of: "
+                           f"{', '.join(c for c in spec if c != key)}")
+    if table == "trials" and column in _FIXED_AT_IMPORT:
+        raise CatalogError(f"'{column}' fixed how the trace points were converted at import and cannot be corrected; "
+                           "import the trial again under a new id and exclude or purge this one")
+    header, cell = _correction_cell(spec[column], value_text)
+    label = f"correction of {_noun(table)} '{record_id}'"
+    with connect(db) as con, transaction(con):
+        stored = _stored_row(con, table, key, record_id)
+        known = {r[0] for r in con.execute("SELECT catalyst_id FROM catalysts").fetchall()}
+        # Stored values go back through a unit conversion and may trip a bound by one ulp; only what the correction
+        # newly breaks is reported.
+        before = {str(p) for p in _check_record(table, columns, stored, known, label).problems}
+        after = _check_record(table, columns, stored, known, label, (column, header, cell))
+        problems = [Problem(label, None, p.column, p.message) for p in after.problems if str(p) not in before]
+        if problems:
+            raise ValidationError(problems)
+        value = after.frame.at[0, column]
+        if _same_value(value, stored[column]):
+            raise CatalogError(f"{_noun(table)} '{record_id}' already has {column} = {_as_text(stored[column])}; "
+                               "nothing recorded")
+        con.execute(f'UPDATE {table} SET "{column}" = ? WHERE {key} = ?', [_bound(value), record_id])
+        if table == "trials":
+            con.execute("DELETE FROM trial_fits WHERE trial_id = ?", [record_id])
+        return _record_change(con, table, record_id, column, _as_text(stored[column]), _as_text(value), who, reason)
+
+
+def _set_excluded(db, table: str, record_id: str, excluded: bool, who: str | None, reason: str | None) -> Change:
+    key, _ = _record_spec(table)
+    with connect(db) as con, transaction(con):
+        row = con.execute(f"SELECT excluded FROM {table} WHERE {key} = ?", [record_id]).fetchone()
+        if row is None:
+            raise CatalogError(f"no {_noun(table)} '{record_id}' in the database")
+        if bool(row[0]) == excluded:
+            state = "excluded" if excluded else "included"
+            raise CatalogError(f"{_noun(table)} '{record_id}' is already {state}; nothing recorded")
+        con.execute(f"UPDATE {table} SET excluded = ? WHERE {key} = ?", [excluded, record_id])
+        return _record_change(con, table, record_id, "excluded", _as_text(bool(row[0])), _as_text(excluded),
+                              who, reason)
+
+
+def exclude(db: str | os.PathLike | None, table: str, record_id: str, who: str | None = None,
+            reason: str | None = None) -> Change:
+    """Leave a trial or catalyst out of analysis without deleting anything; undone by :func:`include`.
+
+    Excluding a catalyst also leaves out its trials. The change is recorded in the history.
+    """
+    return _set_excluded(db, table, record_id, True, who, reason)
+
+
+def include(db: str | os.PathLike | None, table: str, record_id: str, who: str | None = None,
+            reason: str | None = None) -> Change:
+    """Take an excluded trial or catalyst back into analysis; the change is recorded in the history."""
+    return _set_excluded(db, table, record_id, False, who, reason)
+
+
+def history(db: str | os.PathLike | None = None, record_id: str | None = None) -> pd.DataFrame:
+    """Every recorded change, oldest first, optionally of one record only.
+
+    Columns: change_id, table_name, record_id, column_name, old_value, new_value, changed_by, changed_at (UTC),
+    reason. Values are the canonical text of the stored SI value (K, kg, m³, ...); a purge row has column_name
+    ``"(record)"`` and the deleted record as JSON in old_value.
+    """
+    with connect(db, read_only=True) as con:
+        return con.execute(
+            "SELECT * FROM history WHERE record_id = coalesce(?::VARCHAR, record_id) ORDER BY change_id", [record_id]
+        ).df()
+
+
+def purge(db: str | os.PathLike | None, table: str, record_id: str, who: str | None = None,
+          reason: str | None = None) -> Change:
+    """Delete a trial (with its trace points and cached fit) or a catalyst that has no trials, for good.
+
+    The one irreversible operation: the history keeps the deleted record as JSON (with the number of trace points
+    removed) so the deletion itself is never silent. Prefer :func:`exclude`, which can be undone.
+
+    Raises
+    ------
+    CatalogError
+        Unknown record, or a catalyst that still has trials.
+    """
+    key, _ = _record_spec(table)
+    with connect(db) as con, transaction(con):
+        stored = _stored_row(con, table, key, record_id)
+        record = {"record": {name: _as_text(value) for name, value in stored.items()}}
+        if table == "catalysts":
+            n_trials = con.execute("SELECT count(*) FROM trials WHERE catalyst_id = ?", [record_id]).fetchone()[0]
+            if n_trials:
+                raise CatalogError(f"catalyst '{record_id}' still has {n_trials} trial(s); purge or re-assign them "
+                                   "first, or exclude the catalyst instead")
+        else:
+            record["trace_points"] = int(
+                con.execute("SELECT count(*) FROM trace_points WHERE trial_id = ?", [record_id]).fetchone()[0])
+            con.execute("DELETE FROM trace_points WHERE trial_id = ?", [record_id])
+            con.execute("DELETE FROM trial_fits WHERE trial_id = ?", [record_id])
+        con.execute(f"DELETE FROM {table} WHERE {key} = ?", [record_id])
+        return _record_change(con, table, record_id, PURGED, json.dumps(record, ensure_ascii=False), None, who, reason)
+
+
+def purge_import(db: str | os.PathLike | None, import_id: int, who: str | None = None,
+                 reason: str | None = None) -> Change:
+    """Delete everything one import wrote (e.g. the demo campaign), for good, recording it in the history.
+
+    Its trials go with their trace points and cached fits; its catalysts go unless trials of other imports still
+    use them. The import's provenance row is removed and the history keeps a JSON summary of what was deleted.
+    """
+    with connect(db) as con, transaction(con):
+        row = con.execute("SELECT source, n_trials FROM imports WHERE import_id = ?", [int(import_id)]).fetchone()
+        if row is None:
+            raise CatalogError(f"no import #{import_id} in {resolve_path(db)}")
+        trial_ids = "SELECT trial_id FROM trials WHERE import_id = ?"
+        summary = {
+            "source": row[0],
+            "trials": con.execute(f"SELECT count(*) FROM ({trial_ids})", [int(import_id)]).fetchone()[0],
+            "trace_points": con.execute(
+                f"SELECT count(*) FROM trace_points WHERE trial_id IN ({trial_ids})", [int(import_id)]).fetchone()[0],
+        }
+        for table in ("trace_points", "trial_fits"):
+            con.execute(f"DELETE FROM {table} WHERE trial_id IN ({trial_ids})", [int(import_id)])
+        con.execute("DELETE FROM trials WHERE import_id = ?", [int(import_id)])
+        unused = "import_id = ? AND catalyst_id NOT IN (SELECT catalyst_id FROM trials WHERE catalyst_id IS NOT NULL)"
+        summary["catalysts"] = con.execute(f"SELECT count(*) FROM catalysts WHERE {unused}",
+                                           [int(import_id)]).fetchone()[0]
+        con.execute(f"DELETE FROM catalysts WHERE {unused}", [int(import_id)])
+        con.execute("DELETE FROM imports WHERE import_id = ?", [int(import_id)])
+        return _record_change(con, "imports", str(import_id), PURGED, json.dumps(summary, ensure_ascii=False), None,
+                              who, reason)
+
+
+def list_catalysts(db: str | os.PathLike | None = None, include_excluded: bool = False) -> pd.DataFrame:
+    """The catalyst registry (SI), with each catalyst's number of trials; no trace points are read."""
+    with connect(db, read_only=True) as con:
+        return con.execute(
+            f"""
+            SELECT {', '.join('c.' + f for f in _CATALYST_FIELDS)}, c.excluded, count(t.trial_id) AS n_trials
+            FROM catalysts c LEFT JOIN trials t USING (catalyst_id)
+            WHERE ? OR NOT c.excluded
+            GROUP BY ALL ORDER BY c.catalyst_id
+            """,
+            [include_excluded],
+        ).df()
+
+
+# --------------------------------------------------------------------------------------------------- backup
+
+BACKUP_MANIFEST = "catalog-backup.json"
+BACKUP_FORMAT = 1
+_IDENTIFIER = re.compile(r"^[a-z_][a-z0-9_]*$")
+
+
+def _all_tables(con) -> list[str]:
+    names = [r[0] for r in con.execute(
+        "SELECT table_name FROM information_schema.tables WHERE table_schema = 'main' AND table_type = 'BASE TABLE' "
+        "ORDER BY table_name").fetchall()]
+    # Table names go into SQL text, so only plain lower-case identifiers are accepted.
+    odd = [n for n in names if not _IDENTIFIER.match(n)]
+    if odd:
+        raise CatalogError(f"unexpected table names in the database: {', '.join(map(repr, odd))}")
+    return names
+
+
+def backup(db: str | os.PathLike | None, directory: str | os.PathLike) -> dict:
+    """Write a consistent copy of every table as Parquet into a new folder, with a manifest written last.
+
+    All tables are read in one transaction, so the copy is one moment of the store even if a writer is waiting.
+    The manifest (``catalog-backup.json``) holds the format, the catalog version, the time (UTC), the migrations and
+    every table's row count; a folder without it is an unfinished backup and :func:`restore` refuses it.
+
+    Returns
+    -------
+    dict
+        The manifest.
+    """
+    out = Path(directory)
+    if out.exists() and (not out.is_dir() or any(out.iterdir())):
+        raise CatalogError(f"{out}: not an empty folder; choose a new folder for the backup")
+    path = resolve_path(db)
+    with connect(path, read_only=True) as con, transaction(con):
+        out.mkdir(parents=True, exist_ok=True)
+        counts = {}
+        for name in _all_tables(con):
+            con.execute(f"COPY (SELECT * FROM {name}) TO ? (FORMAT parquet)", [str(out / f"{name}.parquet")])
+            counts[name] = int(con.execute(f"SELECT count(*) FROM {name}").fetchone()[0])
+        migrations = [r[0] for r in con.execute("SELECT version FROM schema_migrations ORDER BY version").fetchall()]
+    manifest = {"format": BACKUP_FORMAT, "catalog_version": __version__, "created_at": _now().isoformat(),
+                "source": str(path), "migrations": migrations, "tables": counts}
+    partial = out / (BACKUP_MANIFEST + ".partial")
+    partial.write_text(json.dumps(manifest, indent=2), encoding="utf-8")
+    os.replace(partial, out / BACKUP_MANIFEST)
+    return manifest
+
+
+def _read_manifest(folder: Path) -> dict:
+    try:
+        manifest = json.loads((folder / BACKUP_MANIFEST).read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise CatalogError(f"{folder}: no {BACKUP_MANIFEST}; not a backup, or an unfinished one") from None
+    except (OSError, ValueError) as exc:
+        raise CatalogError(f"{folder / BACKUP_MANIFEST}: cannot be read: {exc}") from exc
+    if not isinstance(manifest, dict) or manifest.get("format") != BACKUP_FORMAT:
+        raise CatalogError(f"{folder / BACKUP_MANIFEST}: not a backup format this version reads")
+    known = {version for version, _, _ in MIGRATIONS}
+    versions = manifest.get("migrations")
+    if not isinstance(versions, list) or not versions or not set(versions) <= known:
+        raise CatalogError(f"{folder}: made by a newer catalog (schema versions {versions}); upgrade to restore it")
+    if not isinstance(manifest.get("tables"), dict):
+        raise CatalogError(f"{folder / BACKUP_MANIFEST}: the table list is missing")
+    return manifest
+
+
+def _holds_data(path: Path) -> bool:
+    with connect(path, read_only=True) as con:
+        return any(con.execute(f"SELECT count(*) > 0 FROM {name}").fetchone()[0]
+                   for name in _all_tables(con) if name != "schema_migrations")
+
+
+def _remove_database(path: Path) -> None:
+    for leftover in (path, path.with_name(path.name + ".wal")):
+        leftover.unlink(missing_ok=True)
+
+
+def restore(directory: str | os.PathLike, db: str | os.PathLike | None, *, force: bool = False) -> dict:
+    """Rebuild a database file from a :func:`backup` folder.
+
+    The copy is built in a side file, checked against the manifest's row counts and only then moved over the
+    target, so a failed restore leaves the target as it was. The schema comes from this version's own migrations
+    (up to the backup's), never from SQL text found in the folder.
+
+    Parameters
+    ----------
+    directory : path-like
+        The backup folder.
+    db : path-like or None
+        Target database file.
+    force : bool, default False
+        Replace a target that already holds data.
+
+    Returns
+    -------
+    dict
+        The manifest of the restored backup.
+
+    Raises
+    ------
+    CatalogError
+        Not a backup, unreadable or incomplete files, counts that disagree, or a target holding data without force.
+    """
+    folder = Path(directory)
+    manifest = _read_manifest(folder)
+    target = resolve_path(db)
+    if target.exists() and not force and _holds_data(target):
+        raise CatalogError(f"{target} already holds data; restore into a new file, or use force to replace it")
+    partial = target.with_name(target.name + ".restoring")
+    _remove_database(partial)
+    con = duckdb.connect(str(partial), config={"autoinstall_known_extensions": False,
+                                               "autoload_known_extensions": False})
+    try:
+        migrate(con, upto=max(manifest["migrations"]))
+        tables = _all_tables(con)
+        wanted = set(manifest["tables"])
+        if wanted != set(tables):
+            raise CatalogError(f"{folder}: its tables ({', '.join(sorted(wanted))}) do not match schema version "
+                               f"{max(manifest['migrations'])}")
+        with transaction(con):
+            con.execute("DELETE FROM schema_migrations")
+            for name in tables:
+                file = folder / f"{name}.parquet"
+                if not file.is_file():
+                    raise CatalogError(f"{file}: missing; the backup is incomplete")
+                con.execute(f"INSERT INTO {name} BY NAME SELECT * FROM read_parquet(?)", [str(file)])
+                count = con.execute(f"SELECT count(*) FROM {name}").fetchone()[0]
+                if count != manifest["tables"][name]:
+                    raise CatalogError(f"{file}: {count} rows, but the manifest says {manifest['tables'][name]}; "
+                                       "the backup is damaged")
+        con.execute("CHECKPOINT")
+    except duckdb.Error as exc:
+        con.close()
+        _remove_database(partial)
+        raise CatalogError(f"{folder}: cannot be restored: {_first_line(exc)}") from exc
+    except BaseException:
+        con.close()
+        _remove_database(partial)
+        raise
+    con.close()
+    if target.exists():
+        try:
+            # Waits for any other user of the target to finish, and folds its log into the file so no stale
+            # write-ahead log is replayed over the restored copy.
+            with connect(target) as old:
+                old.execute("CHECKPOINT")
+        except DatabaseBusyError:
+            _remove_database(partial)
+            raise
+        except CatalogError:
+            pass  # a damaged target is being replaced on purpose
+    target.with_name(target.name + ".wal").unlink(missing_ok=True)
+    os.replace(partial, target)
+    return manifest

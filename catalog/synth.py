@@ -738,7 +738,9 @@ def write_bulk_campaign(directory, n_trials: int, n_points: int = 200, seed: int
     catalysts.to_csv(folder / "catalysts.csv", index=False, encoding="utf-8", lineterminator="\n")
 
     _, k_blank, k_cat0 = _rate_constants(plan)
-    duration = np.where(catalysed, _round_to(4.5 * np.log(2) / (k_blank + k_cat0), 1.0), BLANK_DURATION)
+    # At least one second per reading, so readings rounded to 0.1 s never repeat a time on a very fast trial.
+    duration = np.where(catalysed, np.maximum(_round_to(4.5 * np.log(2) / (k_blank + k_cat0), 1.0), n_points),
+                        BLANK_DURATION)
     ratio = plan["product_ratio"].to_numpy(float)
     mode_index = plan["measurement"].map({m: i for i, m in enumerate(_MODE_NAMES)}).to_numpy(int)
     over_water = cols["collected_over_water"] == "true"
