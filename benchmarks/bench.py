@@ -232,7 +232,7 @@ def main(argv: list[str] | None = None) -> int:
             print(_row(name, out["seconds"], n if name != "DuckDB read_csv of traces (raw)" else 0,
                        points, out["peak_mib"]))
             for step, seconds in out.get("steps", ()):
-                print(f"    {step:<45} {seconds:>6.2f} s")
+                print(f"    {step:<52} {seconds:>6.2f} s")
         if "error" in ranked:
             print(f"{'ranking':<34} failed: {ranked['error']}")
         else:

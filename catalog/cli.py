@@ -14,9 +14,9 @@ import pandas as pd
 
 from catalog import __version__, diagnostics, exports, hazard, ranking, report, results, store
 from catalog.analysis import Settings
-from catalog.campaign import read_source
+from catalog.campaign import CATALYST_COLUMNS, TRIAL_COLUMNS, read_source
 from catalog.errors import CatalogError
-from catalog.units import UnitProblem, parse_temperature
+from catalog.units import UnitProblem, from_si, parse_temperature
 
 EXIT_USER_ERROR = 2
 EXIT_INTERNAL = 3
@@ -86,18 +86,33 @@ def cmd_imports(args: argparse.Namespace) -> int:
 _RECORD_TABLES = {"trial": "trials", "catalyst": "catalysts"}
 
 
+_SPECS = {"trials": {c.name: c for c in TRIAL_COLUMNS}, "catalysts": {c.name: c for c in CATALYST_COLUMNS}}
+
+
+def _shown(table: str, column: str, text: str | None) -> str:
+    """A stored (SI) value in the column's display unit, e.g. '308.35' K as '35.2 degC'."""
+    if text is None or (isinstance(text, float) and pd.isna(text)):
+        return "(empty)"
+    spec = _SPECS.get(table, {}).get(column)
+    if spec is None or spec.kind != "number" or spec.unit in (None, "dimensionless"):
+        return str(text)
+    try:
+        return f"{float(from_si(float(text), spec.unit)):.6g} {spec.unit}"
+    except ValueError:
+        return str(text)
+
+
 def _say_change(change: store.Change) -> None:
     noun = change.table.removesuffix("s")
     print(f"change #{change.change_id} recorded: {noun} '{change.record_id}', {change.column}: "
-          f"{change.old_value if change.old_value is not None else '(empty)'} -> "
-          f"{change.new_value if change.new_value is not None else '(empty)'}")
+          f"{_shown(change.table, change.column, change.old_value)} -> "
+          f"{_shown(change.table, change.column, change.new_value)}")
 
 
 def cmd_correct(args: argparse.Namespace) -> int:
     change = store.correct(args.db, _RECORD_TABLES[args.kind], args.id, args.column, args.value,
                            who=args.who, reason=args.reason)
     _say_change(change)
-    print("(numbers are shown as stored, in SI units)")
     return 0
 
 
@@ -118,6 +133,9 @@ def cmd_history(args: argparse.Namespace) -> int:
         return 0
     shown = changes.rename(columns={"change_id": "#", "table_name": "table", "record_id": "id", "column_name": "column",
                                     "old_value": "was", "new_value": "now", "changed_by": "by", "changed_at": "when (UTC)"})
+    for column in ("was", "now"):
+        shown[column] = [_shown(t, c, v) if v is not None else None
+                         for t, c, v in zip(changes["table_name"], changes["column_name"], shown[column])]
     # A purged record's JSON can be long; the full text stays in the database.
     for column in ("was", "now", "reason"):
         shown[column] = shown[column].fillna("").str.slice(0, 60)

@@ -62,6 +62,8 @@ def _code_hash() -> str:
 
 
 CODE_HASH = _code_hash()
+#: Trials fitted per block: bounds the memory of a cold analysis of a campaign of any size (~2×10^6 points).
+FIT_BLOCK = 10_000
 
 
 def run_key(settings: analysis.Settings, stamp: str) -> str:
@@ -78,11 +80,10 @@ def get_results(db: str | os.PathLike | None, settings: analysis.Settings, progr
     computed = cached is None
     if computed:
         say("loading trials")
-        catalysts, trials, points = store.load_campaign(db)
-        fits = store.load_fits(db, analysis.FIT_VERSION)
-        todo = len(set(trials["trial_id"]) - set(fits.index))
-        say(f"fitting {todo} trace(s), reusing {len(trials) - todo} cached fit(s)")
-        result = analysis.analyse(catalysts, trials, points, settings, fits=fits)
+        catalysts, trials = store.load_records(db)
+        fits = _fit_missing(db, trials.set_index("trial_id"), store.load_fits(db, analysis.FIT_VERSION), say)
+        no_points = pd.DataFrame({"trial_id": pd.Series(dtype=object), "t": [], "value": []})
+        result = analysis.analyse(catalysts, trials, no_points, settings, fits=fits)
         say("running diagnostics")
         flags = diagnostics.evaluate(result, settings)
         trial_table = _with_codes(result.trials, flags, "trial")
@@ -102,6 +103,19 @@ def get_results(db: str | os.PathLike | None, settings: analysis.Settings, progr
     trials = cached["trial_results"].set_index("trial_id")
     catalysts = cached["catalyst_results"].set_index("catalyst_id").sort_index()
     return Results(trials, catalysts, cached["flags"], blank, settings, key, stamp, computed)
+
+
+def _fit_missing(db, trials: pd.DataFrame, cached: pd.DataFrame, say) -> pd.DataFrame:
+    """Kinetic fits for every trial: cached ones reused, the rest fitted a block of trials at a time."""
+    todo = trials.index.difference(cached.index)
+    say(f"fitting {len(todo)} trace(s), reusing {len(trials) - len(todo)} cached fit(s)")
+    fresh = []
+    for start in range(0, len(todo), FIT_BLOCK):
+        block = todo[start:start + FIT_BLOCK]
+        fresh.append(analysis.fit_all(trials.loc[block], store.load_points(db, block)))
+        if len(todo) > FIT_BLOCK:
+            say(f"  fitted {min(start + FIT_BLOCK, len(todo))} of {len(todo)}")
+    return pd.concat([cached.loc[cached.index.intersection(trials.index)], *fresh])
 
 
 def _with_codes(table: pd.DataFrame, flags: pd.DataFrame, scope: str) -> pd.DataFrame:

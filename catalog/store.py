@@ -692,8 +692,8 @@ def data_stamp(db: str | os.PathLike | None = None) -> str:
     return "i{}-h{}-t{}-c{}".format(*row)
 
 
-def load_campaign(db: str | os.PathLike | None = None) -> tuple[pd.DataFrame, pd.DataFrame, pd.DataFrame]:
-    """Catalysts, trials and trace points in SI, without excluded records (points sorted by trial and time)."""
+def load_records(db: str | os.PathLike | None = None) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Catalysts and trials in SI, without excluded records (a trial of an excluded catalyst is left out too)."""
     with connect(db, read_only=True) as con:
         catalysts = con.execute(
             f"SELECT {', '.join(_CATALYST_FIELDS)} FROM catalysts WHERE NOT excluded ORDER BY catalyst_id").df()
@@ -702,10 +702,29 @@ def load_campaign(db: str | os.PathLike | None = None) -> tuple[pd.DataFrame, pd
                 WHERE NOT excluded AND (catalyst_id IS NULL OR catalyst_id NOT IN
                       (SELECT catalyst_id FROM catalysts WHERE excluded))
                 ORDER BY trial_id""").df()
-        points = con.execute(
-            """SELECT p.trial_id, p.t, p.value FROM trace_points p
-               JOIN trials t USING (trial_id) WHERE NOT t.excluded ORDER BY p.trial_id, p.t""").df()
-    return catalysts, trials, points
+    return catalysts, trials
+
+
+def load_points(db: str | os.PathLike | None, trial_ids=None) -> pd.DataFrame:
+    """Trace points ``trial_id, t, value`` (SI) of the given trials, or of every included trial; sorted by trial, t.
+
+    Reading a campaign's points a block of trials at a time keeps the memory of a 10^7-point analysis bounded.
+    """
+    with connect(db, read_only=True) as con:
+        if trial_ids is None:
+            return con.execute(
+                """SELECT p.trial_id, p.t, p.value FROM trace_points p
+                   JOIN trials t USING (trial_id) WHERE NOT t.excluded ORDER BY p.trial_id, p.t""").df()
+        con.register("wanted", pd.DataFrame({"trial_id": pd.Series(list(trial_ids), dtype=object)}))
+        return con.execute(
+            """SELECT p.trial_id, p.t, p.value FROM trace_points p SEMI JOIN wanted w ON p.trial_id = w.trial_id
+               ORDER BY p.trial_id, p.t""").df()
+
+
+def load_campaign(db: str | os.PathLike | None = None) -> tuple[pd.DataFrame, pd.DataFrame, pd.DataFrame]:
+    """Catalysts, trials and trace points in SI, without excluded records (points sorted by trial and time)."""
+    catalysts, trials = load_records(db)
+    return catalysts, trials, load_points(db)
 
 
 def load_trace(db: str | os.PathLike | None, trial_id: str) -> pd.DataFrame:
