@@ -610,7 +610,8 @@ def page_import() -> None:
 def show_trial(db: str, res: results.Results, trial_id: str, compact: bool = False) -> None:
     """One trial: its figures, raw signal, product formed with the fitted rate law, residuals, flags, hazards."""
     row = res.trials.loc[trial_id]
-    cols = st.columns(3 if compact else 6)
+    # Three per row: six metric values side by side get cut off at a laptop width.
+    cols = st.columns(3)
     figures = [
         ("Temperature", f"{to_c(row['temperature']):.1f} °C"),
         ("Initial rate r0", f"{from_si(row['r0'], 'umol/min'):.3g} µmol/min"),
