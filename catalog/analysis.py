@@ -18,18 +18,31 @@ from __future__ import annotations
 
 import hashlib
 import json
+import sys
 from dataclasses import asdict, dataclass
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
+from scipy import stats
 
-from catalog import __version__, arrhenius, batch, hazard, photons, signals, sites, transport
+from catalog import __version__, arrhenius, batch, hazard, kinetics, photons, signals, sites, transport
 from catalog.orders import reaction_order
 
 #: Temperatures within this many kelvin are one set point (replicates), e.g. 35.0 and 35.1 °C.
 SET_POINT_TOLERANCE = 0.5
-#: Version of the per-trial fit; bump when kinetics or batch change numbers, so cached fits are redone.
-FIT_VERSION = f"{__version__}-fit1"
+
+
+def source_fingerprint(*modules) -> str:
+    """Short hash of the source files of ``modules``: cached results made by other code are never served."""
+    digest = hashlib.sha256()
+    for module in modules:
+        digest.update(Path(module.__file__).read_bytes())
+    return digest.hexdigest()[:12]
+
+
+#: Version of the per-trial fit: any change to the fitting or signal-conversion code makes cached fits stale.
+FIT_VERSION = f"{__version__}-{source_fingerprint(kinetics, batch, signals, sys.modules[__name__])}"
 
 TRIAL_FIT_COLUMNS = (
     "model", "r0", "r0_se", "k", "k_se", "k_unit", "half_life", "offset", "plateau", "plateau_se", "n_max",
@@ -138,15 +151,33 @@ def fit_all(trials: pd.DataFrame, points: pd.DataFrame) -> pd.DataFrame:
     return fits[list(TRIAL_FIT_COLUMNS)]
 
 
+def blank_charge(trials: pd.DataFrame) -> pd.Series:
+    """What the blank rate scales with for each trial: its charge of limiting reactant, mol, or 1.
+
+    The uncatalysed reaction is taken as first order in the limiting reactant, so a blank run with 1 mmol predicts
+    half the blank rate of a catalysed trial charged with 2 mmol. When some blank has no ``limiting_amount`` the
+    blank model stays in absolute mol/s (every trial assumed charged like the blanks) and the charge is 1; a trial
+    without a charge is taken as charged like the median blank.
+    """
+    amount = trials["limiting_amount"].astype(float)
+    blank_amount = amount[trials["catalyst_id"].isna()]
+    if blank_amount.empty or not np.isfinite(blank_amount).all():
+        return pd.Series(1.0, index=trials.index)
+    return amount.where(np.isfinite(amount), float(blank_amount.median()))
+
+
 def blank_model(trials: pd.DataFrame, fits: pd.DataFrame) -> arrhenius.ArrheniusFit | None:
-    """Arrhenius fit of the uncatalysed (blank) trials' initial rates, or None with fewer than two temperatures."""
+    """Arrhenius fit of the blank trials' initial rates per unit charge, or None with fewer than two temperatures.
+
+    .. math:: \\frac{r_{0,b}}{\\nu\\, n_{A,0}} = A_b\\, e^{-E_{a,b}/RT}
+    """
     blanks = trials.index[trials["catalyst_id"].isna()]
     if len(blanks) == 0:
         return None
     f = fits.loc[fits.index.intersection(blanks)]
-    ratio = trials.loc[f.index, "product_ratio"]
+    per = trials.loc[f.index, "product_ratio"] * blank_charge(trials).loc[f.index]
     try:
-        return arrhenius.fit_arrhenius(trials.loc[f.index, "temperature"], f["r0"] / ratio, f["r0_se"] / ratio)
+        return arrhenius.fit_arrhenius(trials.loc[f.index, "temperature"], f["r0"] / per, f["r0_se"] / per)
     except (arrhenius.TooFewTemperatures, ValueError):
         return None
 
@@ -166,13 +197,15 @@ def trial_figures(trials: pd.DataFrame, catalysts: pd.DataFrame, fits: pd.DataFr
     r0 = out["rate"].to_numpy(float)
     r0_se = out["rate_se"].to_numpy(float)
     catalysed = out["catalyst_id"].notna().to_numpy()
+    charge = blank_charge(trials).reindex(out.index).to_numpy(float)
 
     if blank is not None:
         ln_blank = arrhenius.predict(blank, T)
-        blank_rate = np.asarray(ln_blank.value, float)
+        blank_rate = np.asarray(ln_blank.value, float) * charge
         # A symmetric standard error from the 95 % interval half-width on the log scale (what TOF propagation needs).
-        blank_se = blank_rate * (np.log(np.asarray(ln_blank.high, float)) - np.log(blank_rate)) / blank.coverage_factor
-        ratio = arrhenius.enhancement(r0, r0_se, blank, T)
+        blank_se = blank_rate * (np.log(np.asarray(ln_blank.high, float)) - np.log(np.asarray(ln_blank.value, float))
+                                 ) / blank.coverage_factor
+        ratio = arrhenius.enhancement(r0 / charge, r0_se / charge, blank, T)
         out["blank_rate"] = np.where(catalysed, blank_rate, np.nan)
         out["blank_extrapolated"] = np.where(catalysed, np.asarray(ln_blank.extrapolated, bool), False)
         out["enhancement"] = np.where(catalysed, ratio.ratio, np.nan)
@@ -194,7 +227,9 @@ def trial_figures(trials: pd.DataFrame, catalysts: pd.DataFrame, fits: pd.DataFr
     turnover = sites.tof(r0, r0_se, np.where(catalysed, blank_rate, 0.0), np.where(catalysed, blank_se, 0.0), n_sites)
     out["tof"] = np.where(catalysed, turnover.tof, np.nan)
     out["tof_se"] = np.where(catalysed, turnover.tof_se, np.nan)
-    out["ton"] = np.where(catalysed, sites.ton(out["final_amount"].to_numpy(float), n_sites), np.nan)
+    # Turnovers of the limiting reactant, the same basis as the TOF.
+    converted = out["final_amount"].to_numpy(float) / out["product_ratio"].to_numpy(float)
+    out["ton"] = np.where(catalysed, sites.ton(converted, n_sites), np.nan)
     out["rate_per_mass"] = np.where(catalysed, sites.rate_per_mass(r0, mass), np.nan)
     area = per_mass["surface_area"].to_numpy(float)
     out["rate_per_area"] = np.where(catalysed & np.isfinite(area), sites.rate_per_area(r0, mass, area), np.nan)
@@ -271,6 +306,11 @@ def catalyst_figures(trial_table: pd.DataFrame, catalysts: pd.DataFrame, blank, 
     rows = []
     catalysed = trial_table[trial_table["catalyst_id"].notna()]
     blank_ea = blank.ea if blank is not None else np.nan
+    charge = blank_charge(trial_table)
+    if blank is not None:
+        at_ref = arrhenius.predict(blank, T_ref)
+        blank_ref = float(np.asarray(at_ref.value))
+        blank_log_se = float(np.log(np.asarray(at_ref.high) / blank_ref)) / blank.coverage_factor
     for cid, group in catalysed.groupby("catalyst_id", sort=True):
         T = group["temperature"].to_numpy(float)
         main = standard_series(group)
@@ -283,12 +323,14 @@ def catalyst_figures(trial_table: pd.DataFrame, catalysts: pd.DataFrame, blank, 
         n_sites = float(np.nanmedian(group["sites"])) if group["sites"].notna().any() else np.nan
         mass = float(np.nanmedian(group["catalyst_mass"]))
         if blank is not None and np.isfinite(row["tof_ref"]):
-            # Enhancement at T_ref for the catalyst's median charge: (blank + TOF·sites) / blank.
-            b = float(np.asarray(arrhenius.predict(blank, T_ref).value))
-            row["enhancement_ref"] = 1 + row["tof_ref"] * n_sites / b
-            row["enhancement_ref_low"] = 1 + row["tof_ref_low"] * n_sites / b
-            row["enhancement_ref_high"] = 1 + row["tof_ref_high"] * n_sites / b
-            row["blank_extrapolated"] = bool(np.asarray(arrhenius.predict(blank, T_ref).extrapolated))
+            # Enhancement at T_ref for the catalyst's median charge and sites: E = 1 + TOF·N / r_b(T_ref), with
+            # var ln(E − 1) = var ln TOF + var ln r_b: the blank model's uncertainty often dominates.
+            gain = row["tof_ref"] * n_sites / (blank_ref * float(np.median(charge.loc[group.index[main]])))
+            spread = stats.norm.ppf(0.975) * np.hypot(row["tof_ref_log_se"], blank_log_se)
+            row["enhancement_ref"] = 1 + gain
+            row["enhancement_ref_low"] = 1 + gain * np.exp(-spread)
+            row["enhancement_ref_high"] = 1 + gain * np.exp(spread)
+            row["blank_extrapolated"] = bool(np.asarray(at_ref.extrapolated))
         else:
             row |= {"enhancement_ref": np.nan, "enhancement_ref_low": np.nan, "enhancement_ref_high": np.nan,
                     "blank_extrapolated": False}
@@ -321,10 +363,10 @@ def standard_series(group: pd.DataFrame) -> np.ndarray:
     with the most trials); trials without a known concentration count as one more group.
     """
     c = _reactant_concentration(group)
-    key = np.where(np.isfinite(c), np.round(np.log(np.where(c > 0, c, 1.0)), 3), np.inf)
+    level = np.where(np.isfinite(c), np.round(np.log(np.where(c > 0, c, 1.0)), 3), np.inf)
     # Illuminated trials measure a different (photo-assisted) rate: they never join the dark series.
     lit = np.nan_to_num(group["light_power"].to_numpy(float)) > 0
-    key = np.where(lit, key + 1e6, key)
+    key = np.array([f"{'lit' if on else 'dark'} {x}" for on, x in zip(lit, level)])
     labels = _set_points(group["temperature"].to_numpy(float))
     best, best_score = None, (-1, -1)
     for value in np.unique(key):
@@ -341,7 +383,7 @@ def _nanmax(series: pd.Series) -> float:
 
 _ARRHENIUS_EMPTY = dict.fromkeys(
     ["ea", "ea_se", "ea_low", "ea_high", "ln_a", "ln_a_low", "ln_a_high", "dh", "dh_low", "dh_high", "ds", "ds_low",
-     "ds_high", "curvature_p", "birge", "r2_arrhenius"], np.nan)
+     "ds_high", "curvature_p", "birge", "r2_arrhenius", "tof_ref_log_se"], np.nan)
 
 
 def _arrhenius_row(T: np.ndarray, tof: np.ndarray, tof_se: np.ndarray, T_ref: float) -> dict:
@@ -359,15 +401,20 @@ def _arrhenius_row(T: np.ndarray, tof: np.ndarray, tof_se: np.ndarray, T_ref: fl
         # One set point: TOF at T_ref only if T_ref is that set point (no Ea, so no extrapolation).
         at_ref = good & (np.abs(T - T_ref) <= SET_POINT_TOLERANCE)
         if at_ref.sum() >= 1:
-            values = tof[at_ref]
+            values, stated = tof[at_ref], tof_se[at_ref]
+            n = len(values)
             mean = float(np.mean(values))
-            sem = float(np.std(values, ddof=1) / np.sqrt(len(values))) if len(values) > 1 else float(tof_se[at_ref][0])
-            half = 1.96 * sem  # normal quantile: too few replicates for a t interval to mean much
+            # The standard error of the mean is the larger of the replicate scatter and the trials' own errors;
+            # with n replicates the 95 % interval takes Student t on n − 1 degrees of freedom (a single trial
+            # has only its stated error, so the normal quantile).
+            stated_sem = float(np.sqrt(np.mean(stated**2) / n))
+            sem = max(float(np.std(values, ddof=1) / np.sqrt(n)), stated_sem) if n > 1 else stated_sem
+            half = (stats.t.ppf(0.975, n - 1) if n > 1 else stats.norm.ppf(0.975)) * sem
             row |= {"tof_ref": mean, "tof_ref_low": max(mean - half, 0.0), "tof_ref_high": mean + half,
-                    "tof_ref_extrapolated": False}
+                    "tof_ref_extrapolated": False, "tof_ref_log_se": sem / mean}
         else:
             row |= {"tof_ref": np.nan, "tof_ref_low": np.nan, "tof_ref_high": np.nan,
-                    "tof_ref_extrapolated": bool(good.any())}
+                    "tof_ref_extrapolated": bool(good.any()), "tof_ref_log_se": np.nan}
         return row
     eyring = arrhenius.fit_eyring(T, tof, tof_se)
     pred = arrhenius.predict(fit, T_ref)
@@ -379,6 +426,7 @@ def _arrhenius_row(T: np.ndarray, tof: np.ndarray, tof_se: np.ndarray, T_ref: fl
         "curvature_p": fit.curvature_p, "birge": fit.birge, "r2_arrhenius": fit.r2,
         "tof_ref": float(np.asarray(pred.value)), "tof_ref_low": float(np.asarray(pred.low)),
         "tof_ref_high": float(np.asarray(pred.high)), "tof_ref_extrapolated": bool(np.asarray(pred.extrapolated)),
+        "tof_ref_log_se": float(np.log(np.asarray(pred.high) / np.asarray(pred.value))) / fit.coverage_factor,
     }
     return row
 
@@ -388,15 +436,16 @@ def _order_row(group: pd.DataFrame) -> dict:
     empty = {"order": np.nan, "order_low": np.nan, "order_high": np.nan, "order_temperature": np.nan}
     c = _reactant_concentration(group)
     labels = _set_points(group["temperature"].to_numpy(float))
+    dark = np.nan_to_num(group["light_power"].to_numpy(float)) <= 0
     best = None
     for label in np.unique(labels):
-        at = (labels == label) & np.isfinite(c) & (c > 0)
+        at = (labels == label) & np.isfinite(c) & (c > 0) & dark
         if len(np.unique(np.round(c[at], 9))) >= 3 and (best is None or at.sum() > best.sum()):
             best = at
     if best is None:
         return empty
     try:
-        fit = reaction_order(c[best], group["r0"].to_numpy(float)[best], group["r0_se"].to_numpy(float)[best])
+        fit = reaction_order(c[best], group["rate"].to_numpy(float)[best], group["rate_se"].to_numpy(float)[best])
     except ValueError:
         return empty
     return {"order": fit.order, "order_low": fit.low, "order_high": fit.high,

@@ -334,7 +334,8 @@ def fit_arrhenius(T, k, k_se=None):
     ea_se = float(np.sqrt(cov[1, 1]))
     ln_a_se = float(np.sqrt(cov[0, 0]))
     c = line.coverage_factor
-    w = np.ones_like(y) if y_se is None else 1.0 / y_se**2
+    # The same weights as the line, extra scatter included, so the two χ² of the curvature F test are comparable.
+    w = np.ones_like(y) if y_se is None else 1.0 / (y_se**2 + line.tau**2)
     return ArrheniusFit(
         ea=float(ea),
         ea_se=ea_se,

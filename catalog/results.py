@@ -11,7 +11,6 @@ from __future__ import annotations
 import hashlib
 import json
 import os
-from pathlib import Path
 from dataclasses import asdict, dataclass
 
 import pandas as pd
@@ -48,20 +47,10 @@ class Results:
     computed: bool
 
 
-def _code_hash() -> str:
-    """Fingerprint of the source of every module that shapes the cached figures.
-
-    A released version number alone would let a changed diagnostic rule or fit serve stale cached results during
-    development; hashing the source makes any such change start a fresh run.
-    """
-    digest = hashlib.sha256()
-    for module in (analysis, arrhenius, batch, diagnostics, hazard, kinetics, orders, photons, signals, sites,
-                   transport):
-        digest.update(Path(module.__file__).read_bytes())
-    return digest.hexdigest()[:16]
-
-
-CODE_HASH = _code_hash()
+#: Fingerprint of the source of every module that shapes the cached figures: a changed fit or diagnostic rule
+#: starts a fresh run instead of serving stale results.
+CODE_HASH = analysis.source_fingerprint(analysis, arrhenius, batch, diagnostics, hazard, kinetics, orders, photons,
+                                        signals, sites, transport)
 #: Trials fitted per block: bounds the memory of a cold analysis of a campaign of any size (~2×10^6 points).
 FIT_BLOCK = 10_000
 

@@ -12,6 +12,7 @@ import re
 from dataclasses import dataclass
 from functools import lru_cache
 
+import numpy as np
 import pint
 
 REGISTRY = pint.UnitRegistry(autoconvert_offset_to_baseunit=True)
@@ -132,6 +133,8 @@ def parse_temperature(text: str, default_unit: str = "degC") -> float:
         raise UnitProblem(f"'{text}' is not a temperature (write e.g. 35, '35 degC' or '308.15 K')")
     scale, shift, _ = si_converter(match.group("unit") or default_unit, "degC")
     kelvin = float(match.group("number")) * scale + shift
+    if not np.isfinite(kelvin):
+        raise UnitProblem(f"'{text}' is not a finite temperature")
     if kelvin <= 0:
         raise UnitProblem(f"'{text}' is at or below absolute zero")
     return kelvin

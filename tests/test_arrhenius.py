@@ -246,3 +246,14 @@ def test_interval_coverage_heterogeneous_errors_with_replicate_scatter():
         fit = fit_arrhenius(T, np.exp(ln_k), k_se=stated * np.exp(ln_k))
         hits += fit.ea_low <= ea_true <= fit.ea_high
     assert 0.92 <= hits / 400 <= 0.99
+
+
+def test_curvature_is_detected_with_extra_scatter():
+    # A strongly bent ln k(1/T) (two channels, 30 and 120 kJ/mol, summed) with 2 % stated errors and 3 % real
+    # scatter: the F test must still see the bend once the extra variance enters both fits (seeded synthetic data).
+    rng = np.random.default_rng(3)
+    T = np.repeat(np.linspace(290.0, 380.0, 8), 2)
+    k = np.exp(12 - 30e3 / (R * T)) + np.exp(44 - 120e3 / (R * T))  # the channels cross near 335 K
+    k = k * np.exp(rng.normal(0.0, 0.03, T.size))
+    fit = fit_arrhenius(T, k, k_se=0.02 * k)
+    assert fit.curvature_p < 1e-3

@@ -147,7 +147,8 @@ def test_purge_deletes_for_good_but_leaves_the_record_in_the_history(db):
 
 def test_cli_commands(db, capsys, monkeypatch):
     assert main(["correct", "trial", "R1", "temperature", "31 degC", "--db", str(db), "--reason", "recalibrated"]) == 0
-    assert "304.15" in capsys.readouterr().out
+    # stored as 304.15 K, shown back in the column's display unit
+    assert "temperature: 30 degC -> 31 degC" in capsys.readouterr().out
     assert main(["exclude", "catalyst", "RuAl-B", "--db", str(db)]) == 0
     assert main(["include", "catalyst", "RuAl-B", "--db", str(db)]) == 0
     assert main(["correct", "trial", "R1", "trial_id", "X", "--db", str(db)]) == 2
