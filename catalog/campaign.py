@@ -18,6 +18,7 @@ import pandas as pd
 import periodictable
 
 from catalog.errors import CatalogError, Problem, ValidationError
+from catalog.signals import water_vapour_pressure
 from catalog.units import UnitProblem, parse_header, si_converter
 
 CATALYSTS_FILE = "catalysts.csv"
@@ -36,6 +37,8 @@ MEASUREMENTS = {
 #: Conditions the gas volume is read at when a gas_volume trial does not say (IUPAC SATP-like lab default).
 DEFAULT_GAS_PRESSURE = 101_325.0
 DEFAULT_GAS_TEMPERATURE = 298.15
+#: Where gas can be collected over liquid water: the triple point to the critical point (IAPWS-IF97 region 4).
+WATER_T_MIN, WATER_T_MAX = 273.16, 647.096
 
 
 @dataclass(frozen=True)
@@ -59,9 +62,11 @@ class Column:
 CATALYST_COLUMNS = (
     Column("catalyst_id", "id", required=True),
     Column("metal", "text"),
-    Column("metal_loading", unit="wt%", lower=0.0, upper=1.0),
-    Column("dispersion", unit="%", lower=0.0, upper=1.0),
-    Column("site_density", unit="umol/g", lower=0.0),
+    # Zero loading, dispersion or site density would mean no active sites (an infinite TOF): leave the cell empty
+    # instead when it is not known.
+    Column("metal_loading", unit="wt%", lower=0.0, lower_open=True, upper=1.0),
+    Column("dispersion", unit="%", lower=0.0, lower_open=True, upper=1.0),
+    Column("site_density", unit="umol/g", lower=0.0, lower_open=True),
     Column("surface_area", unit="m^2/g", lower=0.0),
     Column("description", "text"),
     Column("support", "text"),
@@ -327,18 +332,20 @@ def _check_column(
         low = values <= column.lower if column.lower_open else values < column.lower
         words = "must be above" if column.lower_open else "must not be below"
         for r, v in zip(_rows(low), text[low]):
-            what = "absolute zero" if column.unit in ("degC",) else f"{_display(column.lower, column, scale, shift)}"
+            what = "absolute zero" if column.unit in ("degC",) else _display(column.lower, header, scale, shift)
             problems.append(Problem(label, r, header, f"{v} {words} {what}"))
     if column.upper is not None:
         high = values > column.upper
         for r, v in zip(_rows(high), text[high]):
-            problems.append(Problem(label, r, header, f"{v} is above {_display(column.upper, column, scale, shift)}"))
+            problems.append(Problem(label, r, header, f"{v} is above {_display(column.upper, header, scale, shift)}"))
     return si, problems
 
 
-def _display(si_value: float, column: Column, scale: float, shift: float) -> str:
+def _display(si_value: float, header: str, scale: float, shift: float) -> str:
+    """A bound in the unit the header uses (no unit for zero, which reads the same in any scale unit)."""
     value = (si_value - shift) / scale
-    return f"{value:g}" if column.unit in (None, "dimensionless") else f"{value:g} in the header's unit"
+    unit = parse_header(header).unit
+    return f"{value:g}" if value == 0 or not unit else f"{value:g} {unit}"
 
 
 def _check_table(raw: RawTable, columns: tuple[Column, ...]) -> Checked:
@@ -433,6 +440,17 @@ def check_trials(raw: RawTable, known_catalysts: set[str]) -> Checked:
     add(catalyst.notna() & ~catalyst.isin(list(known_catalysts)), "catalyst_id",
         lambda row: f"catalyst '{row['catalyst_id']}' is neither in the catalysts table nor in the database")
     add(catalyst.notna() & frame["catalyst_mass"].isna(), "catalyst_mass", "a catalysed trial needs the catalyst mass")
+    wet = (known == "gas_volume") & frame["collected_over_water"].fillna(False).astype(bool)
+    gas_T = frame["gas_temperature"].fillna(DEFAULT_GAS_TEMPERATURE)
+    liquid_water = (gas_T >= WATER_T_MIN) & (gas_T <= WATER_T_MAX)
+    add(wet & ~liquid_water, "gas_temperature",
+        lambda row: f"gas collected over water must be between 0.01 and 373.9 °C (read {_celsius(row)})")
+    # Over water the gas is saturated with vapour; at or below the vapour pressure no gas could be collected.
+    vapour = pd.Series(np.nan, index=frame.index)
+    vapour[wet & liquid_water] = water_vapour_pressure(gas_T[wet & liquid_water].to_numpy(float))
+    add(wet & (frame["gas_pressure"].fillna(DEFAULT_GAS_PRESSURE) <= vapour), "gas_pressure",
+        lambda row: f"{row['gas_pressure'] / 1e3:g} kPa is not above the water vapour pressure at {_celsius(row)} "
+                    f"({vapour[row.name] / 1e3:.3g} kPa), so no gas could be collected over water")
     gas = frame["measurement"] == "gas_volume"
     frame.loc[gas & frame["gas_pressure"].isna(), "gas_pressure"] = DEFAULT_GAS_PRESSURE
     frame.loc[gas & frame["gas_temperature"].isna(), "gas_temperature"] = DEFAULT_GAS_TEMPERATURE
@@ -440,6 +458,11 @@ def check_trials(raw: RawTable, known_catalysts: set[str]) -> Checked:
     frame["signal_scale"] = scale
     frame["signal_shift"] = shift
     return checked
+
+
+def _celsius(row) -> str:
+    kelvin = row["gas_temperature"] if pd.notna(row["gas_temperature"]) else DEFAULT_GAS_TEMPERATURE
+    return f"{kelvin - 273.15:g} °C"
 
 
 def trace_layout(source: TraceSource) -> tuple[dict[str, str], float, list[Problem], list[str]]:

@@ -9,6 +9,7 @@ from __future__ import annotations
 import argparse
 import os
 import sys
+from pathlib import Path
 
 import pandas as pd
 
@@ -200,15 +201,21 @@ def _weights(text: str | None) -> dict[str, float] | None:
 
 
 def _ranked(args: argparse.Namespace):
+    # Every option is checked before the analysis runs, so a typo costs nothing.
     settings = _settings(args)
-    found = results.get_results(args.db, settings, progress=None if args.quiet else _progress)
-    if found.catalysts.empty:
-        raise CatalogError(f"{store.resolve_path(args.db)}: no catalysed trials to rank yet")
     if args.metric not in (*ranking.METRICS, "score"):
         raise CatalogError(f"--metric: '{args.metric}' is not one of {', '.join((*ranking.METRICS, 'score'))}")
     weights = _weights(args.weights)
     if args.metric == "score" and not weights:
         raise CatalogError("--metric score needs --weights, e.g. --weights tof=2,enhancement=1")
+    if args.top < 1:
+        raise CatalogError("--top must be at least 1")
+    wanted = exports.FORMATS if args.command == "rank" else (".html", ".htm")
+    if args.out and Path(args.out).suffix.lower() not in wanted:
+        raise CatalogError(f"--out: '{args.out}' should end in {', '.join(wanted)}")
+    found = results.get_results(args.db, settings, progress=None if args.quiet else _progress)
+    if found.catalysts.empty:
+        raise CatalogError(f"{store.resolve_path(args.db)}: no catalysed trials to rank yet")
     ranked = ranking.rank(found.catalysts, metric=args.metric, weights=weights, top_k=args.top,
                           exclude_flags=_codes(args.exclude), demote_flags=_codes(args.demote),
                           n_draws=args.draws, seed=args.seed)
@@ -343,8 +350,8 @@ def build_parser() -> argparse.ArgumentParser:
         p = add(name, func, help_text)
         analysis_options(p)
         p.add_argument("--metric", default="tof",
-                       help="what to rank by: tof, enhancement, ea, ton, rate_per_mass, rate_per_area, cost, "
-                            "or score (weighted, needs --weights); default tof")
+                       help=f"what to rank by: {', '.join(ranking.METRICS)}, or score (weighted, needs --weights); "
+                            "default tof")
         p.add_argument("--weights", help="for --metric score: NAME=WEIGHT pairs, e.g. tof=2,enhancement=1")
         p.add_argument("--top", type=int, default=3, help="size of the shortlist for P(top k) (default 3)")
         p.add_argument("--exclude", help="flag codes that exclude a catalyst from the ranking (comma-separated)")

@@ -13,6 +13,7 @@ import json
 import os
 from dataclasses import asdict, dataclass
 
+import numpy as np
 import pandas as pd
 
 from catalog import (analysis, arrhenius, batch, diagnostics, hazard, kinetics, orders, photons, signals, sites, store,
@@ -70,11 +71,14 @@ def get_results(db: str | os.PathLike | None, settings: analysis.Settings, progr
     if computed:
         say("loading trials")
         catalysts, trials = store.load_records(db)
-        fits = _fit_missing(db, trials.set_index("trial_id"), store.load_fits(db, analysis.FIT_VERSION), say)
-        no_points = pd.DataFrame({"trial_id": pd.Series(dtype=object), "t": [], "value": []})
-        result = analysis.analyse(catalysts, trials, no_points, settings, fits=fits)
-        say("running diagnostics")
-        flags = diagnostics.evaluate(result, settings)
+        # Missing inputs give NaN figures by design (empty cells, never made-up numbers); numpy's warnings about
+        # them are noise to a user.
+        with np.errstate(all="ignore"):
+            fits = _fit_missing(db, trials.set_index("trial_id"), store.load_fits(db, analysis.FIT_VERSION), say)
+            no_points = pd.DataFrame({"trial_id": pd.Series(dtype=object), "t": [], "value": []})
+            result = analysis.analyse(catalysts, trials, no_points, settings, fits=fits)
+            say("running diagnostics")
+            flags = diagnostics.evaluate(result, settings)
         trial_table = _with_codes(result.trials, flags, "trial")
         catalyst_table = _with_codes(result.catalysts, flags, "catalyst")
         blank = result.blank

@@ -13,6 +13,7 @@ as :class:`~catalog.errors.DatabaseBusyError`.
 from __future__ import annotations
 
 import contextlib
+import dataclasses
 import getpass
 import json
 import os
@@ -178,23 +179,36 @@ def _holder(exc: Exception) -> str:
 
 
 @contextlib.contextmanager
-def connect(db: str | os.PathLike | None = None, *, read_only: bool = False, wait: float = LOCK_WAIT_S) -> Iterator[
-    duckdb.DuckDBPyConnection
-]:
-    """Open the store, apply pending migrations (when writable), and close it afterwards.
+def connect(db: str | os.PathLike | None = None, *, read_only: bool = False, wait: float = LOCK_WAIT_S,
+            create: bool = False) -> Iterator[duckdb.DuckDBPyConnection]:
+    """Open the store, apply pending migrations, and close it afterwards.
 
-    A lock held by another process is retried for ``wait`` seconds, then reported as busy.
+    Only ``create=True`` (an import's final write) makes a new file, so a mistyped path or a failed command never
+    leaves an empty database behind. A lock held by another process is retried for ``wait`` seconds, then reported
+    as busy. A read-only open of a file made by an older version first brings its schema up to date.
     """
     path = resolve_path(db)
-    if read_only and not path.exists():
+    if not create and not path.exists():
         raise CatalogError(f"{path}: no database here yet; import a campaign first (catalog import FOLDER --db {path})")
+    if read_only and _pending_migrations(path, wait):
+        with connect(path, wait=wait):
+            pass
+    con = _open(path, read_only, wait)
+    try:
+        if not read_only:
+            migrate(con)
+        yield con
+    finally:
+        con.close()
+
+
+def _open(path: Path, read_only: bool, wait: float) -> duckdb.DuckDBPyConnection:
     config = {"autoinstall_known_extensions": False, "autoload_known_extensions": False}
     deadline = time.monotonic() + wait
     delay = 0.05
     while True:
         try:
-            con = duckdb.connect(str(path), read_only=read_only, config=config)
-            break
+            return duckdb.connect(str(path), read_only=read_only, config=config)
         except duckdb.IOException as exc:
             if not _is_lock_error(exc):
                 raise CatalogError(f"{path}: cannot open the database: {exc}") from exc
@@ -206,12 +220,17 @@ def connect(db: str | os.PathLike | None = None, *, read_only: bool = False, wai
             delay = min(delay * 2, 0.5)
         except duckdb.Error as exc:
             raise CatalogError(f"{path}: not a catalog database or damaged: {exc}") from exc
+
+
+def _pending_migrations(path: Path, wait: float) -> bool:
+    con = _open(path, True, wait)
     try:
-        if not read_only:
-            migrate(con)
-        yield con
+        done = con.execute(
+            "SELECT count(*) FROM information_schema.tables WHERE table_name = 'schema_migrations'").fetchone()[0]
+        latest = con.execute("SELECT max(version) FROM schema_migrations").fetchone()[0] if done else None
     finally:
         con.close()
+    return latest is None or latest < MIGRATIONS[-1][0]
 
 
 def migrate(con: duckdb.DuckDBPyConnection, upto: int | None = None) -> list[int]:
@@ -296,16 +315,14 @@ def import_campaign(
     """
     say = progress or (lambda message: None)
     path = resolve_path(db)
-    with connect(path) as con:
-        earlier = con.execute(
-            "SELECT import_id, imported_at FROM imports WHERE content_hash = ? ORDER BY import_id LIMIT 1",
-            [source.content_hash],
-        ).fetchone()
-        if earlier is not None:
-            return ImportReport(None, 0, 0, 0, duplicate_of=earlier[0],
-                                notes=[f"identical files were imported as import #{earlier[0]} on {earlier[1]:%Y-%m-%d %H:%M}; nothing written"])
-        stored_catalysts = con.execute(f"SELECT {', '.join(_CATALYST_FIELDS)} FROM catalysts").df()
-        stored_ids = set(con.execute("SELECT trial_id FROM trials").df()["trial_id"])
+    if not path.exists():
+        earlier, stored_catalysts, stored_ids = None, pd.DataFrame(columns=_CATALYST_FIELDS), set()
+    else:
+        earlier, stored_catalysts, stored_ids = _stored_state(path, source.content_hash)
+    if earlier is not None:
+        return ImportReport(None, 0, 0, 0, duplicate_of=earlier[0],
+                            notes=[f"identical files were imported as import #{earlier[0]} on "
+                                   f"{earlier[1]:%Y-%m-%d %H:%M}; nothing written"])
 
     say("checking catalysts and trials")
     catalysts = check_catalysts(source.catalysts)
@@ -357,6 +374,18 @@ def import_campaign(
         stage.close()
     return ImportReport(import_id, len(new_catalysts), len(new_trial_frame), int(n_points),
                         skipped_catalysts, skipped_trials, notes)
+
+
+def _stored_state(path: Path, content_hash: str) -> tuple[tuple | None, pd.DataFrame, set[str]]:
+    """An earlier import of identical files (id, time) if any, the stored catalysts and the stored trial ids."""
+    with connect(path, read_only=True) as con:
+        earlier = con.execute(
+            "SELECT import_id, imported_at FROM imports WHERE content_hash = ? ORDER BY import_id LIMIT 1",
+            [content_hash],
+        ).fetchone()
+        catalysts = con.execute(f"SELECT {', '.join(_CATALYST_FIELDS)} FROM catalysts").df()
+        trial_ids = set(con.execute("SELECT trial_id FROM trials").df()["trial_id"])
+    return earlier, catalysts, trial_ids
 
 
 def _split_known(
@@ -437,11 +466,13 @@ def _stage_traces(
             _stage_text(stage, source, names)
         except duckdb.Error as exc:
             return [Problem(label, None, None, f"cannot be read as CSV: {_first_line(exc)}")], notes
+        located = []
         for condition, column, message in _TRACE_FAULTS:
-            problems += _located(stage, f"SELECT line, trial_id, time_text, value_text FROM typed WHERE {condition}",
-                                 label, names[column], message)
-        problems += _located(stage, f"SELECT line, trial_id, time_text, value_text FROM ({_NOT_INCREASING})",
-                             label, names["time"], "time {time_text} does not increase within trial '{trial_id}'")
+            located += _located(stage, f"SELECT line, trial_id, time_text, value_text FROM typed WHERE {condition}",
+                                label, names[column], message)
+        located += _located(stage, f"SELECT line, trial_id, time_text, value_text FROM ({_NOT_INCREASING})",
+                            label, names["time"], "time {time_text} does not increase within trial '{trial_id}'")
+        problems += _file_lines(located, source.traces.csv_path)
         empty = stage.execute(
             "SELECT trial_id FROM factors WHERE trial_id NOT IN (SELECT DISTINCT trial_id FROM typed) ORDER BY trial_id"
         ).fetchall()
@@ -460,6 +491,29 @@ def _stage_traces(
         """
     )
     return problems, notes
+
+
+def _file_lines(problems: list[Problem], path: Path | None) -> list[Problem]:
+    """Turn data-row numbers into the file's own line numbers where the file has blank lines.
+
+    The CSV reader skips blank lines, so row k of the table can sit further down the file. This runs only when a
+    fault was found, so a clean import never pays for the extra pass over the file.
+    """
+    wanted = sorted({p.row for p in problems if p.row is not None})
+    if path is None or not wanted:
+        return problems
+    physical: dict[int, int] = {}
+    row = 1  # the header is row 1
+    with path.open("r", encoding="utf-8-sig", errors="replace", newline="") as handle:
+        next(handle, None)
+        for number, text in enumerate(handle, start=2):
+            if text.strip():
+                row += 1
+                if row in wanted:
+                    physical[row] = number
+                    if len(physical) == len(wanted):
+                        break
+    return [dataclasses.replace(p, row=physical.get(p.row, p.row)) if p.row is not None else p for p in problems]
 
 
 def _csv_names(source: CampaignSource, names: dict[str, str]) -> list[str]:
@@ -585,6 +639,8 @@ def _first_line(exc: Exception) -> str:
 def _write(stage, path: Path, source: CampaignSource, catalysts: pd.DataFrame, trials: pd.DataFrame,
            n_points: int, n_skipped: int, demo: bool, who: str, notes: list[str]) -> int:
     """Write one import atomically into the store, attached to the staging connection."""
+    with connect(path, create=True):
+        pass  # creates the file on a first import and brings its schema up to date before the attach
     deadline = time.monotonic() + LOCK_WAIT_S
     while True:
         try:

@@ -232,7 +232,11 @@ def _noisy(rng, mode, clean, noise):
     sd = noise * (absolute[mode] + relative[mode] * np.abs(clean))
     noisy = clean + sd * rng.standard_normal(clean.shape)
     step = resolution[mode]
-    return np.round(noisy / step) * step
+    # Dividing by the whole number 1/step (not multiplying by step) gives the double nearest the decimal reading,
+    # so the CSV shows 31.31 rather than 31.310000000000002.
+    per_unit = np.round(1.0 / step)
+    counts = np.round(noisy / step)
+    return np.where(per_unit >= 1, counts / np.maximum(per_unit, 1), counts * step)
 
 
 def _round_to(values, step):
