@@ -225,7 +225,12 @@ def _ranked(args: argparse.Namespace):
 def cmd_rank(args: argparse.Namespace) -> int:
     found, ranked = _ranked(args)
     table = exports.shortlist_table(ranked, found, args.top, metric=args.metric)
-    shown = table[[c for c in _screen_columns(args.top) if c in table.columns]]
+    columns = _screen_columns(args.top)
+    if args.metric not in ("tof", "ea"):  # those two are on screen anyway, in display units
+        # Show what the order is based on, next to the TOF every chemist reads first.
+        columns[2:2] = ["metric_value", "metric_low", "metric_high"]
+    shown = table[[c for c in columns if c in table.columns]].rename(
+        columns={"metric_value": args.metric, "metric_low": f"{args.metric}_low", "metric_high": f"{args.metric}_high"})
     with pd.option_context("display.max_rows", None, "display.width", 220, "display.max_colwidth", 40):
         print(shown.to_string(index=False, na_rep="", float_format=lambda v: f"{v:.4g}"))
     print(f"\nreference temperature {found.settings.reference_temperature - 273.15:.2f} °C; metric {args.metric}; "
@@ -371,6 +376,10 @@ def main(argv: list[str] | None = None) -> int:
     except CatalogError as exc:
         print(f"error: {exc}", file=sys.stderr)
         return EXIT_USER_ERROR
+    except BrokenPipeError:
+        # The reader of our output went away (e.g. `| head`): not an error; keep Python from complaining at exit.
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 0
     except KeyboardInterrupt:
         print("interrupted; nothing half-written (imports are all-or-nothing)", file=sys.stderr)
         return 130
