@@ -1106,7 +1106,7 @@ def purge(db: str | os.PathLike | None, table: str, record_id: str, who: str | N
 
 def purge_import(db: str | os.PathLike | None, import_id: int, who: str | None = None,
                  reason: str | None = None) -> Change:
-    """Delete everything one import wrote (e.g. the demo campaign), for good, recording it in the history.
+    """Delete everything one import wrote (e.g. the demo campaign), for good, and notes it in the history.
 
     Its trials go with their trace points and cached fits; its catalysts go unless trials of other imports still
     use them. The import's provenance row is removed and the history keeps a JSON summary of what was deleted.
