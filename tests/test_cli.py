@@ -1,0 +1,68 @@
+"""The `catalog` command end to end on the demo campaign: rank columns, temperature units, report, clean errors."""
+
+from __future__ import annotations
+
+import csv
+
+import pytest
+
+from catalog.cli import main
+
+REQUIRED = ["rank", "catalyst_id", "tof [1/s]", "tof_low [1/s]", "tof_high [1/s]", "ea [kJ/mol]", "ea_low [kJ/mol]",
+            "ea_high [kJ/mol]", "enhancement", "n_trials", "flags"]
+
+
+def _rows(path):
+    with open(path, newline="", encoding="utf-8") as handle:
+        return list(csv.DictReader(handle))
+
+
+def test_rank_writes_the_required_columns_with_one_row_per_catalyst(demo_db, tmp_path, capsys):
+    out = tmp_path / "shortlist.csv"
+    assert main(["rank", "--db", str(demo_db), "--temperature", "35", "--out", str(out), "--quiet"]) == 0
+    rows = _rows(out)
+    assert list(rows[0])[: len(REQUIRED)] == REQUIRED
+    assert len(rows) == 12 and [r["rank"] for r in rows] == [str(i) for i in range(1, 13)]
+    single = next(r for r in rows if r["catalyst_id"] == "RhAl-03")
+    assert single["ea [kJ/mol]"] == "" and "single-temperature" in single["flags"]  # no made-up Ea
+    assert "caution:" in capsys.readouterr().out
+
+
+def test_temperature_with_a_unit_means_the_same_point(demo_db, tmp_path):
+    celsius, kelvin = tmp_path / "c.csv", tmp_path / "k.csv"
+    assert main(["rank", "--db", str(demo_db), "-T", "45", "--out", str(celsius), "--quiet"]) == 0
+    assert main(["rank", "--db", str(demo_db), "-T", "318.15 K", "--out", str(kelvin), "--quiet"]) == 0
+    assert [r["tof [1/s]"] for r in _rows(celsius)] == [r["tof [1/s]"] for r in _rows(kelvin)]
+
+
+def test_report_and_analyse(demo_db, tmp_path, capsys):
+    page = tmp_path / "report.html"
+    assert main(["report", "--db", str(demo_db), "-T", "35", "--out", str(page), "--quiet"]) == 0
+    assert page.stat().st_size > 100_000
+    assert main(["analyse", "--db", str(demo_db), "-T", "35", "--quiet"]) == 0
+    assert "blank (uncatalysed) model: Ea =" in capsys.readouterr().out
+
+
+@pytest.mark.parametrize(
+    "args,words",
+    [
+        (["rank", "-T", "warm"], "--temperature"),
+        (["rank", "-T", "-300"], "absolute zero"),
+        (["rank", "--metric", "colour"], "--metric"),
+        (["rank", "--metric", "score"], "needs --weights"),
+        (["rank", "--metric", "score", "--weights", "tof=x"], "NAME=NUMBER"),
+        (["rank", "--out", "shortlist.pdf"], "should end in"),
+        (["report", "--out", "report.txt"], "should end in"),
+    ],
+)
+def test_bad_options_give_a_message_not_a_traceback(demo_db, capsys, args, words):
+    assert main([*args, "--db", str(demo_db), "--quiet"]) == 2
+    err = capsys.readouterr().err
+    assert words in err and "Traceback" not in err
+
+
+def test_missing_database_is_explained(tmp_path, capsys):
+    missing = tmp_path / "none.duckdb"
+    assert main(["rank", "--db", str(missing), "--quiet"]) == 2
+    assert "no database here yet" in capsys.readouterr().err
+    assert not missing.exists()
