@@ -190,10 +190,13 @@ def connect(db: str | os.PathLike | None = None, *, read_only: bool = False, wai
     path = resolve_path(db)
     if not create and not path.exists():
         raise CatalogError(f"{path}: no database here yet; import a campaign first (catalog import FOLDER --db {path})")
-    if read_only and _pending_migrations(path, wait):
+    con = _open(path, read_only, wait)
+    if read_only and _pending_migrations(con):
+        # A file from an older version: bring its schema up to date once, then read as asked.
+        con.close()
         with connect(path, wait=wait):
             pass
-    con = _open(path, read_only, wait)
+        con = _open(path, read_only, wait)
     try:
         if not read_only:
             migrate(con)
@@ -222,14 +225,11 @@ def _open(path: Path, read_only: bool, wait: float) -> duckdb.DuckDBPyConnection
             raise CatalogError(f"{path}: not a catalog database or damaged: {exc}") from exc
 
 
-def _pending_migrations(path: Path, wait: float) -> bool:
-    con = _open(path, True, wait)
-    try:
-        done = con.execute(
-            "SELECT count(*) FROM information_schema.tables WHERE table_name = 'schema_migrations'").fetchone()[0]
-        latest = con.execute("SELECT max(version) FROM schema_migrations").fetchone()[0] if done else None
-    finally:
-        con.close()
+def _pending_migrations(con: duckdb.DuckDBPyConnection) -> bool:
+    # fetchall, not fetchone: DuckDB 2.0 keeps a half-read result open and refuses the caller's next statement.
+    done = con.execute(
+        "SELECT count(*) FROM information_schema.tables WHERE table_name = 'schema_migrations'").fetchall()[0][0]
+    latest = con.execute("SELECT max(version) FROM schema_migrations").fetchall()[0][0] if done else None
     return latest is None or latest < MIGRATIONS[-1][0]
 
 
