@@ -4,14 +4,14 @@ Run::
 
     python benchmarks/bench.py --trials 10000 --points 200 [--workdir DIR] [--skip-baseline] [--baseline-trials N]
 
-A clean synthetic campaign with known kinetics (:func:`catalog.synth.write_bulk_campaign`) is written to the work
+A clean synthetic campaign with known kinetics (:func:`catalog.datasets.synth.write_bulk_campaign`) is written to the work
 folder, then each phase runs in its own Python process so that its peak resident memory (``ru_maxrss``) is its own:
 
 - ``read_csv``: DuckDB reading the trace file into an in-memory table and nothing else, the floor for an import;
-- ``import``: :func:`catalog.campaign.read_source` + :func:`catalog.store.import_campaign` into a fresh store file;
-- ``analysis``: :func:`catalog.results.get_results` on the cold store (every trial fitted, results stored);
-- ``rank``: :func:`catalog.results.get_results` again (now a cached read, the data a ranking page shows) and
-  :func:`catalog.ranking.rank` on the catalyst table;
+- ``import``: :func:`catalog.ingest.campaign.read_source` + :func:`catalog.store.import_campaign` into a fresh store file;
+- ``analysis``: :func:`catalog.analysis.results.get_results` on the cold store (every trial fitted, results stored);
+- ``rank``: :func:`catalog.analysis.results.get_results` again (now a cached read, the data a ranking page shows) and
+  :func:`catalog.analysis.ranking.rank` on the catalyst table;
 - ``baseline``: the per-trial loop a practitioner would write: pandas reads the CSV files, ``scipy.optimize.curve_fit``
   fits a first-order rise with offset to every trial, then ``np.polyfit`` of ln k against 1/T per catalyst.
 
@@ -40,7 +40,11 @@ import numpy as np
 import pandas as pd
 from scipy.optimize import OptimizeWarning, curve_fit
 
-from catalog import analysis, campaign, results, store, synth
+from catalog import store
+from catalog.analysis import results
+from catalog.analysis.settings import Settings
+from catalog.datasets import synth
+from catalog.ingest import campaign
 
 # Targets of the campaign-scale issue, as ratios measured in one run on the same files.
 END_TO_END_TARGET = 0.1      # (import + analysis + rank) / per-trial curve_fit loop
@@ -83,7 +87,7 @@ def phase_analysis(work: Path) -> dict:
     """Cold analysis of every trial, with the time spent in each step that get_results reports."""
     marks = []
     start = time.perf_counter()
-    res = results.get_results(work / STORE, analysis.Settings(),
+    res = results.get_results(work / STORE, Settings(),
                               progress=lambda message: marks.append((time.perf_counter() - start, message)))
     elapsed = time.perf_counter() - start
     steps = [(message, (marks[i + 1][0] if i + 1 < len(marks) else elapsed) - at)
@@ -94,12 +98,12 @@ def phase_analysis(work: Path) -> dict:
 def phase_rank(work: Path) -> dict:
     """Warm re-read of the results (a query) and the ranking of the catalyst table, when ranking exists."""
     start = time.perf_counter()
-    res = results.get_results(work / STORE, analysis.Settings())
+    res = results.get_results(work / STORE, Settings())
     warm = time.perf_counter() - start
     out = {"warm_seconds": warm, "computed": res.computed, "rank_seconds": None}
     # The ranking module is developed alongside this benchmark; without it the rest still runs.
-    if importlib.util.find_spec("catalog.ranking") is not None:
-        from catalog import ranking
+    if importlib.util.find_spec("catalog.analysis.ranking") is not None:
+        from catalog.analysis import ranking
 
         start = time.perf_counter()
         ranking.rank(res.catalysts, metric="tof")
@@ -238,7 +242,7 @@ def main(argv: list[str] | None = None) -> int:
         else:
             print(_row("warm re-read (get_results, cached)", ranked["warm_seconds"], 0, 0, ranked["peak_mib"]))
             if ranked["rank_seconds"] is None:
-                print(f"{'ranking.rank':<34} skipped: catalog.ranking is not available")
+                print(f"{'ranking.rank':<34} skipped: catalog.analysis.ranking is not available")
             else:
                 print(_row("ranking.rank (catalyst table)", ranked["rank_seconds"], 0, 0))
 

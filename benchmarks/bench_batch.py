@@ -1,4 +1,4 @@
-"""Timing and memory of catalog.batch.fit_traces on invented campaign-sized data.
+"""Timing and memory of catalog.core.batch.fit_traces on invented campaign-sized data.
 
 Run: ``python benchmarks/bench_batch.py [trials] [points]`` (default 10,000 trials x 200 points). Prints the wall
 time, the peak resident memory and how many trials each model took. Invented data, timing only.
@@ -12,7 +12,7 @@ import time
 
 import numpy as np
 
-from catalog.batch import fit_traces
+from catalog.core.batch import fit_traces
 
 
 def synthetic_campaign(trials: int, points: int, seed: int = 0):

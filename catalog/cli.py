@@ -13,10 +13,13 @@ from pathlib import Path
 
 import pandas as pd
 
-from catalog import __version__, diagnostics, exports, hazard, ranking, report, results, store
-from catalog.analysis import Settings
-from catalog.campaign import CATALYST_COLUMNS, TRIAL_COLUMNS, read_source
+from catalog import __version__, store
+from catalog.analysis import diagnostics, ranking, results
+from catalog.analysis.settings import Settings
+from catalog.core import hazard
 from catalog.errors import CatalogError
+from catalog.ingest.campaign import CATALYST_COLUMNS, TRIAL_COLUMNS, read_source
+from catalog.present import exports, report
 from catalog.units import UnitProblem, from_si, parse_temperature
 
 EXIT_USER_ERROR = 2

@@ -29,7 +29,8 @@ import numpy as np
 import pandas as pd
 
 from catalog import __version__
-from catalog.campaign import (
+from catalog.errors import CatalogError, DatabaseBusyError, Problem, ValidationError
+from catalog.ingest.campaign import (
     CATALYST_COLUMNS,
     TRIAL_COLUMNS,
     CampaignSource,
@@ -38,7 +39,6 @@ from catalog.campaign import (
     check_trials,
     trace_layout,
 )
-from catalog.errors import CatalogError, DatabaseBusyError, Problem, ValidationError
 from catalog.units import from_si
 
 DEFAULT_DB = "catalog.duckdb"
@@ -981,7 +981,7 @@ def correct(db: str | os.PathLike | None, table: str, record_id: str, column: st
     record_id : str
         The trial or catalyst id.
     column : str
-        A column of the import contract (:data:`catalog.campaign.TRIAL_COLUMNS` or ``CATALYST_COLUMNS``), not the id.
+        A column of the import contract (:data:`catalog.ingest.campaign.TRIAL_COLUMNS` or ``CATALYST_COLUMNS``), not the id.
     value_text : str
         The new value as it would be typed in an import cell.
     who, reason : str, optional

@@ -1,6 +1,6 @@
 """The browser workbench: log trials, import campaigns, browse trials, compare catalysts, rank and export.
 
-A Streamlit shell over the core. Every figure comes from :func:`catalog.results.get_results` (cached in the store
+A Streamlit shell over the core. Every figure comes from :func:`catalog.analysis.results.get_results` (cached in the store
 and, per database, data stamp and settings, in Streamlit); every write goes through the same importer as the
 command line. This module only calls the core and formats: no SQL, no physics.
 
@@ -23,20 +23,14 @@ import numpy as np
 import pandas as pd
 import streamlit as st
 
-from catalog import (
-    analysis,
-    campaign,
-    charts,
-    diagnostics,
-    exports,
-    hazard,
-    ranking,
-    report,
-    results,
-    store,
-    synth,
-)
+from catalog import store
+from catalog.analysis import diagnostics, ranking, results
+from catalog.analysis.settings import Settings
+from catalog.core import hazard
+from catalog.datasets import synth
 from catalog.errors import CatalogError, Problem, ValidationError
+from catalog.ingest import campaign
+from catalog.present import charts, exports, report
 from catalog.units import from_si
 
 PAGE_DIR = Path(__file__).with_name("webapp_pages")
@@ -97,10 +91,10 @@ def _seed_if_new(db: str) -> bool:
 @st.cache_data(show_spinner="Analysing the trials…", max_entries=16)
 def _cached_results(db: str, stamp: str, reference_temperature: float) -> results.Results:
     # db and stamp key the cache: another database or any change to the data is another entry.
-    return results.get_results(db, analysis.Settings(reference_temperature=reference_temperature))
+    return results.get_results(db, Settings(reference_temperature=reference_temperature))
 
 
-def get_results(db: str, reference_temperature: float = analysis.Settings.reference_temperature) -> results.Results:
+def get_results(db: str, reference_temperature: float = Settings.reference_temperature) -> results.Results:
     """Results for the database at this reference temperature (K), from the Streamlit cache when current."""
     return _cached_results(db, store.data_stamp(db), float(reference_temperature))
 

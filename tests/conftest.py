@@ -4,8 +4,9 @@ from __future__ import annotations
 
 import pytest
 
-from catalog import campaign, store
-from catalog.synth import demo_campaign, write_campaign
+from catalog import store
+from catalog.datasets.synth import demo_campaign, write_campaign
+from catalog.ingest import campaign
 
 
 @pytest.fixture(scope="session")

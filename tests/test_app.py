@@ -10,7 +10,8 @@ import pytest
 import streamlit as st
 from streamlit.testing.v1 import AppTest
 
-from catalog import diagnostics, store
+from catalog import store
+from catalog.analysis import diagnostics
 
 APP = str(Path(__file__).resolve().parent.parent / "app.py")
 PAGES = ("overview", "log_trial", "import_campaign", "trials", "compare", "rank")

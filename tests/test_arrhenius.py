@@ -1,4 +1,4 @@
-"""Reference checks for catalog.arrhenius: published Arrhenius data, mechanism-file kinetics, CODATA, coverage."""
+"""Reference checks for catalog.core.arrhenius: published Arrhenius data, mechanism-file kinetics, CODATA, coverage."""
 
 import numpy as np
 import pytest
@@ -7,7 +7,7 @@ from hypothesis import strategies as st
 from scipy import stats
 from scipy.constants import R, calorie
 
-from catalog.arrhenius import (
+from catalog.core.arrhenius import (
     TooFewTemperatures,
     enhancement,
     eyring_frequency,

@@ -10,12 +10,12 @@ import json
 import duckdb
 import pandas as pd
 import pytest
+from test_import import write_campaign
 
 from catalog import store
-from catalog.campaign import read_source
 from catalog.cli import main
 from catalog.errors import CatalogError
-from test_import import write_campaign
+from catalog.ingest.campaign import read_source
 
 
 def _tables(db) -> dict[str, pd.DataFrame]:

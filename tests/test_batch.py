@@ -1,4 +1,4 @@
-"""catalog.batch: the vectorised fits agree with the per-trial reference catalog.kinetics.fit_trace."""
+"""catalog.core.batch: the vectorised fits agree with the per-trial reference catalog.core.kinetics.fit_trace."""
 
 from __future__ import annotations
 
@@ -7,8 +7,8 @@ import pandas as pd
 import pytest
 from test_kinetics import synthetic_trace
 
-from catalog.batch import COLUMNS, curve_values, fit_traces
-from catalog.kinetics import MODELS, fit_trace, model_curve
+from catalog.core.batch import COLUMNS, curve_values, fit_traces
+from catalog.core.kinetics import MODELS, fit_trace, model_curve
 
 NUMERIC = [c for c in COLUMNS if c not in ("model", "k_unit", "n_points")]
 

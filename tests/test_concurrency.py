@@ -12,10 +12,11 @@ import textwrap
 import time
 
 import duckdb
-
-from catalog import store, synth
-from catalog.campaign import read_source
 from test_import import write_campaign
+
+from catalog import store
+from catalog.datasets import synth
+from catalog.ingest.campaign import read_source
 
 
 def _holder(db, seconds: float | None) -> subprocess.Popen:

@@ -15,10 +15,11 @@ import time
 
 import duckdb
 import pytest
-
-from catalog import store, synth
-from catalog.campaign import read_source
 from test_import import write_campaign
+
+from catalog import store
+from catalog.datasets import synth
+from catalog.ingest.campaign import read_source
 
 N_TRIALS = 2500
 N_POINTS = 150

@@ -1,4 +1,4 @@
-"""Tests for catalog.diagnostics: each flag on a hand-built case, silence on clean data, the demo's known problems."""
+"""Tests for catalog.analysis.diagnostics: each flag on a hand-built case, silence on clean data, the demo's known problems."""
 
 from __future__ import annotations
 
@@ -8,8 +8,13 @@ import periodictable
 import pytest
 from scipy.constants import R
 
-from catalog import arrhenius, campaign, diagnostics, hazard, store, synth, transport
-from catalog.analysis import Analysis, Settings, analyse
+from catalog import store
+from catalog.analysis import diagnostics
+from catalog.analysis.pipeline import Analysis, analyse
+from catalog.analysis.settings import Settings
+from catalog.core import arrhenius, hazard, transport
+from catalog.datasets import synth
+from catalog.ingest import campaign
 
 TRANSPORT = {"transport-ea", "weisz-prater", "mears", "loading-slope"}
 DEACTIVATION = {"deactivation", "late-shortfall", "plateau-short"}

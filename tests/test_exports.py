@@ -10,16 +10,19 @@ import pandas as pd
 import pyarrow.parquet as pq
 import pytest
 
-from catalog import __version__, analysis, diagnostics, exports, ranking, results
+from catalog import __version__
+from catalog.analysis import diagnostics, ranking, results
+from catalog.analysis.settings import Settings
+from catalog.core.hazard import CAUTION
 from catalog.errors import CatalogError
-from catalog.hazard import CAUTION
+from catalog.present import exports
 
 TOP_K = 3
 
 
 @pytest.fixture(scope="module")
 def demo(demo_db):
-    res = results.get_results(demo_db, analysis.Settings())
+    res = results.get_results(demo_db, Settings())
     ranked = ranking.rank(res.catalysts, metric="tof", top_k=TOP_K, n_draws=500, seed=7)
     return res, ranked
 

@@ -14,11 +14,11 @@ from pathlib import Path
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
+from test_import import snapshot, write_campaign
 
 from catalog import store
-from catalog.campaign import read_source
 from catalog.errors import CatalogError
-from test_import import snapshot, write_campaign
+from catalog.ingest.campaign import read_source
 
 FILES = ("catalysts.csv", "trials.csv", "traces.csv")
 

@@ -15,12 +15,12 @@ import pandas as pd
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
+from test_import import TRIALS, _trace_rows, snapshot, write_campaign
 
 from catalog import store
-from catalog.campaign import read_source
 from catalog.cli import main
 from catalog.errors import CatalogError
-from test_import import TRIALS, _trace_rows, snapshot, write_campaign
+from catalog.ingest.campaign import read_source
 
 #: Text a user might type that breaks naive SQL or CSV handling: quotes, separators, keywords, emoji, long text.
 HOSTILE = (

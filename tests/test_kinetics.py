@@ -1,4 +1,4 @@
-"""catalog.kinetics: recovery of known kinetics, textbook half-lives, fallbacks and invariances of fit_trace."""
+"""catalog.core.kinetics: recovery of known kinetics, textbook half-lives, fallbacks and invariances of fit_trace."""
 
 from __future__ import annotations
 
@@ -9,7 +9,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from catalog.kinetics import MODELS, TraceFit, fit_trace, model_curve
+from catalog.core.kinetics import MODELS, TraceFit, fit_trace, model_curve
 
 
 def synthetic_trace(order, rng, n=60, t_end=1800.0, plateau=2e-3, kappa=4.0, offset=0.0, noise=0.01):

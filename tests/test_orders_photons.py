@@ -1,11 +1,11 @@
-"""Checks for catalog.orders (initial-rate orders) and catalog.photons (photon flux, apparent quantum yield)."""
+"""Checks for catalog.core.orders (initial-rate orders) and catalog.core.photons (photon flux, apparent quantum yield)."""
 
 import numpy as np
 import pytest
 from scipy.constants import N_A, c, e, h
 
-from catalog.orders import reaction_order
-from catalog.photons import apparent_quantum_yield, photon_flux
+from catalog.core.orders import reaction_order
+from catalog.core.photons import apparent_quantum_yield, photon_flux
 
 # 2 NO + O2 -> 2 NO2 at 25 °C, initial-rate table (textbook exercise, original source unknown: medium confidence).
 # Concentrations in mol/L and rates in mol/(L s), converted to SI (×1000) below; the order does not depend on units.

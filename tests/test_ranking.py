@@ -1,14 +1,15 @@
-"""Tests for catalog.ranking: Monte Carlo rank intervals, P(top-k), weighted scores, flags and the Pareto set."""
+"""Tests for catalog.analysis.ranking: Monte Carlo rank intervals, P(top-k), weighted scores, flags and the Pareto set."""
 
 from __future__ import annotations
 
 import numpy as np
 import pandas as pd
 import pytest
-from hypothesis import given, settings, strategies as st
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from scipy import stats
 
-from catalog import ranking
+from catalog.analysis import ranking
 from catalog.errors import CatalogError
 
 Z = stats.norm.ppf(0.975)

@@ -1,6 +1,6 @@
 """End-to-end recovery: a campaign generated from known kinetics goes through import, analysis and ranking.
 
-The synthetic campaign (catalog.synth.known_kinetics_campaign) is invented data with known truth; recovering that
+The synthetic campaign (catalog.datasets.synth.known_kinetics_campaign) is invented data with known truth; recovering that
 truth is the check (the analysis code never sees the truth). Tolerances are the acceptance targets of the analysis
 issue: TOF at the reference temperature within 5 %, Ea within 2 kJ/mol, enhancement within 10 %, true order.
 """
@@ -11,9 +11,11 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from catalog import analysis, campaign, results, store
-from catalog.synth import known_kinetics_campaign, write_campaign
-
+from catalog import store
+from catalog.analysis import results
+from catalog.analysis.settings import Settings
+from catalog.datasets.synth import known_kinetics_campaign, write_campaign
+from catalog.ingest import campaign
 
 # Five set points with triplicates: with the generator's 4 % trial-to-trial scatter the standard error of Ea is
 # about 0.6 kJ/mol, so the 2 kJ/mol acceptance target sits at better than 3 standard errors.
@@ -49,7 +51,7 @@ def _true_enhancement(truth, T_ref: float) -> pd.Series:
 def test_known_kinetics_are_recovered(tmp_path):
     truth, db = _load(tmp_path, seed=3)
     t_ref = float(truth.truth["t_ref_K"].iloc[0])
-    got = results.get_results(db, analysis.Settings(reference_temperature=t_ref)).catalysts
+    got = results.get_results(db, Settings(reference_temperature=t_ref)).catalysts
     want = truth.truth.set_index("catalyst_id").drop(index="blank")
     assert set(got.index) == set(want.index)
     # TOF at the reference temperature within 5 % (acceptance target)
@@ -67,7 +69,7 @@ def test_known_kinetics_are_recovered(tmp_path):
 def test_recovery_at_another_reference_temperature(tmp_path):
     truth, db = _load(tmp_path, seed=5)
     T = 323.15
-    got = results.get_results(db, analysis.Settings(reference_temperature=T)).catalysts
+    got = results.get_results(db, Settings(reference_temperature=T)).catalysts
     want = truth.truth.set_index("catalyst_id").drop(index="blank")
     R = 8.314462618
     tof_T = want["tof_ref"] * np.exp(-want["ea_J_per_mol"] / R * (1 / T - 1 / want["t_ref_K"]))
@@ -81,7 +83,7 @@ def test_ea_intervals_cover_the_truth_at_about_the_nominal_rate(tmp_path):
     covered = total = 0
     for seed in range(100, 116):
         truth, db = _load(tmp_path, seed=seed, n_points=40, temperatures_C=(25, 35, 45, 55), replicates=2)
-        got = results.get_results(db, analysis.Settings(reference_temperature=308.15)).catalysts
+        got = results.get_results(db, Settings(reference_temperature=308.15)).catalysts
         want = truth.truth.set_index("catalyst_id").drop(index="blank")["ea_J_per_mol"]
         inside = (got.loc[want.index, "ea_low"] <= want) & (want <= got.loc[want.index, "ea_high"])
         covered += int(inside.sum())

@@ -13,21 +13,24 @@ import pytest
 import vl_convert
 from scipy.constants import R  # CODATA molar gas constant, J/(mol K)
 
-from catalog import __version__, analysis, charts, report, results, store
+from catalog import __version__, store
+from catalog.analysis import results
+from catalog.analysis.settings import Settings
+from catalog.core.hazard import CAUTION
 from catalog.errors import CatalogError
-from catalog.hazard import CAUTION
+from catalog.present import charts, report
 
 
 @pytest.fixture(scope="module")
 def demo(demo_db):
-    res = results.get_results(demo_db, analysis.Settings())
+    res = results.get_results(demo_db, Settings())
     return demo_db, res, store.load_campaign(demo_db)
 
 
 @pytest.fixture(scope="module")
 def page(demo, tmp_path_factory):
     db, _, _ = demo
-    path = report.write_report(db, tmp_path_factory.mktemp("out") / "report.html", analysis.Settings(), top_k=3)
+    path = report.write_report(db, tmp_path_factory.mktemp("out") / "report.html", Settings(), top_k=3)
     return path.read_text(encoding="utf-8")
 
 
@@ -123,7 +126,7 @@ def test_embedded_specs_compile(page):
 def test_report_with_a_given_ranking_shows_its_shortlist(demo, tmp_path):
     db, res, _ = demo
     ranked = _hand_ranking(res.catalysts)
-    path = report.write_report(db, tmp_path / "given.html", analysis.Settings(), ranked=ranked, top_k=2)
+    path = report.write_report(db, tmp_path / "given.html", Settings(), ranked=ranked, top_k=2)
     text = path.read_text(encoding="utf-8")
     for cid in ranked.index[:2]:
         assert f"{cid}: conversion" in text
@@ -133,7 +136,7 @@ def test_report_with_a_given_ranking_shows_its_shortlist(demo, tmp_path):
 def test_report_path_must_be_html(demo, tmp_path):
     db, _, _ = demo
     with pytest.raises(CatalogError, match=r"\.html"):
-        report.write_report(db, tmp_path / "report.pdf", analysis.Settings())
+        report.write_report(db, tmp_path / "report.pdf", Settings())
 
 
 def test_data_hash_ignores_row_order_and_sees_changes(demo):

@@ -1,6 +1,6 @@
 """Campaign-scale path end to end: batch fits agree with the per-trial reference, and re-analysis is incremental.
 
-Invented data (catalog.synth.write_bulk_campaign, the benchmark's generator at a small size); real DuckDB files in
+Invented data (catalog.datasets.synth.write_bulk_campaign, the benchmark's generator at a small size); real DuckDB files in
 tmp_path. No timings here: those live in benchmarks/bench.py.
 """
 
@@ -11,8 +11,13 @@ import shutil
 import numpy as np
 import pytest
 
-from catalog import analysis, campaign, kinetics, results, store
-from catalog.synth import write_bulk_campaign
+from catalog import store
+from catalog.analysis import results
+from catalog.analysis.per_trial import trace_amounts
+from catalog.analysis.settings import FIT_VERSION, Settings
+from catalog.core import kinetics
+from catalog.datasets.synth import write_bulk_campaign
+from catalog.ingest import campaign
 
 N_TRIALS = 60
 # Forty readings keep the generator's 0.1 s time rounding strictly increasing even for its fastest trials.
@@ -29,12 +34,12 @@ def bulk(tmp_path_factory):
 def test_stored_rates_match_the_per_trial_reference(bulk, tmp_path):
     db = tmp_path / "scale.duckdb"
     store.import_campaign(db, campaign.read_source(bulk))
-    res = results.get_results(db, analysis.Settings())
+    res = results.get_results(db, Settings())
     assert res.computed and len(res.trials) == N_TRIALS
 
     _, trials, points = store.load_campaign(db)
     trials = trials.set_index("trial_id")
-    amount = analysis.trace_amounts(trials, points)
+    amount = trace_amounts(trials, points)
     for trial_id, at in points.groupby("trial_id").indices.items():
         row = trials.loc[trial_id]
         ref = kinetics.fit_trace(points["t"].to_numpy()[at], amount[at],
@@ -66,18 +71,18 @@ def test_reanalysis_after_new_trials_fits_only_the_new_ones(bulk, tmp_path):
     db = tmp_path / "grow.duckdb"
     store.import_campaign(db, campaign.read_source(part))
     messages = []
-    results.get_results(db, analysis.Settings(), progress=messages.append)
+    results.get_results(db, Settings(), progress=messages.append)
     assert f"fitting {first} trace(s), reusing 0 cached fit(s)" in messages
-    before = store.load_fits(db, analysis.FIT_VERSION)
+    before = store.load_fits(db, FIT_VERSION)
     assert len(before) == first
 
     report = store.import_campaign(db, campaign.read_source(bulk))
     assert (report.n_trials, len(report.skipped_trials)) == (added, first)
     messages.clear()
-    res = results.get_results(db, analysis.Settings(), progress=messages.append)
+    res = results.get_results(db, Settings(), progress=messages.append)
     assert res.computed and len(res.trials) == N_TRIALS
     assert f"fitting {added} trace(s), reusing {first} cached fit(s)" in messages
-    after = store.load_fits(db, analysis.FIT_VERSION)
+    after = store.load_fits(db, FIT_VERSION)
     assert len(after) == N_TRIALS
     # The earlier fits were reused as stored, not redone.
     kept = after.loc[before.index, ["r0", "k", "rmse"]].to_numpy(float)

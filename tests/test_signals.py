@@ -1,11 +1,13 @@
-"""Reference checks for catalog.signals: ideal gas, water vapour pressure, molar masses, dispatch."""
+"""Reference checks for catalog.core.signals: ideal gas, water vapour pressure, molar masses, dispatch."""
 
 import numpy as np
 import pytest
-from iapws.iapws97 import _PSat_T  # GPL: used here as an outside reference only, never by catalog/
+from iapws.iapws97 import (
+    _PSat_T,  # GPL: used here as an outside reference only, never by catalog/
+)
 from scipy.constants import physical_constants
 
-from catalog.signals import (
+from catalog.core.signals import (
     amount_from_concentration,
     amount_from_gas_volume,
     amount_from_mass_loss,

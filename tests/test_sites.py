@@ -1,9 +1,9 @@
-"""Checks for catalog.sites: site counts from standard atomic weights, TOF with propagated error, TON, rates."""
+"""Checks for catalog.core.sites: site counts from standard atomic weights, TOF with propagated error, TON, rates."""
 
 import numpy as np
 import pytest
 
-from catalog.sites import rate_per_area, rate_per_mass, site_amount, ton, tof
+from catalog.core.sites import rate_per_area, rate_per_mass, site_amount, tof, ton
 
 
 def test_site_count_from_loading_and_dispersion():

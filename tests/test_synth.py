@@ -1,4 +1,4 @@
-"""Tests for the seeded synthetic campaign generator (catalog.synth) and the committed demo files."""
+"""Tests for the seeded synthetic campaign generator (catalog.datasets.synth) and the committed demo files."""
 
 from __future__ import annotations
 
@@ -10,7 +10,7 @@ import periodictable
 import pytest
 import scipy.constants
 
-from catalog import synth
+from catalog.datasets import synth
 
 SAMPLE = Path(__file__).resolve().parents[1] / "sample_campaign"
 

@@ -1,12 +1,12 @@
-"""Checks for catalog.transport (Weisz-Prater, Mears, Thiele) and catalog.hazard (adiabatic rise, pressure)."""
+"""Checks for catalog.core.transport (Weisz-Prater, Mears, Thiele) and catalog.core.hazard (adiabatic rise, pressure)."""
 
 import numpy as np
 import pytest
 from scipy.constants import R, physical_constants
 
-from catalog.arrhenius import fit_arrhenius
-from catalog.hazard import CAUTION, adiabatic_temperature_rise, pressure_rise
-from catalog.transport import (
+from catalog.core.arrhenius import fit_arrhenius
+from catalog.core.hazard import CAUTION, adiabatic_temperature_rise, pressure_rise
+from catalog.core.transport import (
     MEARS_LIMIT,
     WEISZ_PRATER_LIMIT,
     effectiveness_sphere,

@@ -1,11 +1,11 @@
-r"""Campaign-scale rate extraction: the fits of :mod:`catalog.kinetics`, vectorised over thousands of trials.
+r"""Campaign-scale rate extraction: the fits of :mod:`catalog.core.kinetics`, vectorised over thousands of trials.
 
 Traces come long-form (one row per point, sorted by trial then time) and are padded, a chunk of trials at a time, to
 2-D arrays (trials x points) with zeros after each trial's last point; every basis g(u) vanishes at u = 0, so padding
 drops out of all sums. For each model the inner linear least squares in (a, r0) is closed form from per-trial sums,
 and the one nonlinear parameter is found without a per-trial loop:
 
-- first and second order: the profile RSS(kappa) on :data:`catalog.kinetics.CURVATURE_GRID`, then safeguarded
+- first and second order: the profile RSS(kappa) on :data:`catalog.core.kinetics.CURVATURE_GRID`, then safeguarded
   Newton on the profile derivative inside the grid cell that holds the minimum. By the envelope theorem and the
   derivative of the normal equations G^T r = 0 (G = [1, g]),
 
@@ -20,7 +20,7 @@ and the one nonlinear parameter is found without a per-trial loop:
   decoupled rising-line / plateau-mean optimum of every interval).
 
 Model choice, fallback and every derived field come from the same code as the reference
-(:func:`catalog.kinetics.summarise`), so the two paths differ only in how the minimum is found.
+(:func:`catalog.core.kinetics.summarise`), so the two paths differ only in how the minimum is found.
 """
 
 from __future__ import annotations
@@ -28,7 +28,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from catalog.kinetics import (
+from catalog.core.kinetics import (
     CODES,
     CURVATURE_GRID,
     CURVATURE_LINE,

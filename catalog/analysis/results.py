@@ -16,8 +16,15 @@ from dataclasses import asdict, dataclass
 import numpy as np
 import pandas as pd
 
-from catalog import (analysis, arrhenius, batch, diagnostics, hazard, kinetics, orders, photons, signals, sites, store,
-                     transport)
+from catalog import store
+from catalog.analysis import diagnostics
+from catalog.analysis.per_trial import fit_all
+from catalog.analysis.pipeline import analyse
+from catalog.analysis.settings import (
+    FIT_VERSION,
+    TRIAL_FIT_COLUMNS,
+    Settings,
+)
 
 
 @dataclass(frozen=True)
@@ -42,26 +49,22 @@ class Results:
     catalysts: pd.DataFrame
     flags: pd.DataFrame
     blank: dict
-    settings: analysis.Settings
+    settings: Settings
     run_key: str
     data_stamp: str
     computed: bool
 
 
-#: Fingerprint of the source of every module that shapes the cached figures: a changed fit or diagnostic rule
-#: starts a fresh run instead of serving stale results.
-CODE_HASH = analysis.source_fingerprint(analysis, arrhenius, batch, diagnostics, hazard, kinetics, orders, photons,
-                                        signals, sites, transport)
 #: Trials fitted per block: bounds the memory of a cold analysis of a campaign of any size (~2×10^6 points).
 FIT_BLOCK = 10_000
 
 
-def run_key(settings: analysis.Settings, stamp: str) -> str:
-    """Cache key of a result set: settings, code fingerprint and data fingerprint."""
-    return hashlib.sha256(f"{settings.key()}|{CODE_HASH}|{stamp}".encode()).hexdigest()[:20]
+def run_key(settings: Settings, stamp: str) -> str:
+    """Cache key of a result set: settings (with the schema numbers) and data fingerprint."""
+    return hashlib.sha256(f"{settings.key()}|{stamp}".encode()).hexdigest()[:20]
 
 
-def get_results(db: str | os.PathLike | None, settings: analysis.Settings, progress=None) -> Results:
+def get_results(db: str | os.PathLike | None, settings: Settings, progress=None) -> Results:
     """Results for the campaign in ``db`` under ``settings``, from the cache when it is current."""
     say = progress or (lambda message: None)
     stamp = store.data_stamp(db)
@@ -74,9 +77,9 @@ def get_results(db: str | os.PathLike | None, settings: analysis.Settings, progr
         # Missing inputs give NaN figures by design (empty cells, never made-up numbers); numpy's warnings about
         # them are noise to a user.
         with np.errstate(all="ignore"):
-            fits = _fit_missing(db, trials.set_index("trial_id"), store.load_fits(db, analysis.FIT_VERSION), say)
+            fits = _fit_missing(db, trials.set_index("trial_id"), store.load_fits(db, FIT_VERSION), say)
             no_points = pd.DataFrame({"trial_id": pd.Series(dtype=object), "t": [], "value": []})
-            result = analysis.analyse(catalysts, trials, no_points, settings, fits=fits)
+            result = analyse(catalysts, trials, no_points, settings, fits=fits)
             say("running diagnostics")
             flags = diagnostics.evaluate(result, settings)
         trial_table = _with_codes(result.trials, flags, "trial")
@@ -86,9 +89,9 @@ def get_results(db: str | os.PathLike | None, settings: analysis.Settings, progr
             "ea": blank.ea, "ea_low": blank.ea_low, "ea_high": blank.ea_high, "ln_a": blank.ln_a,
             "t_min": blank.t_min, "t_max": blank.t_max, "n_points": blank.n_points}
         say("storing results")
-        fit_columns = list(analysis.TRIAL_FIT_COLUMNS)
+        fit_columns = list(TRIAL_FIT_COLUMNS)
         store.save_run(db, key, json.dumps(asdict(settings), sort_keys=True), stamp,
-                       result.trials[fit_columns], analysis.FIT_VERSION, summary, trial_table, catalyst_table, flags)
+                       result.trials[fit_columns], FIT_VERSION, summary, trial_table, catalyst_table, flags)
         cached = store.load_run(db, key)
     run = cached["run"]
     blank = {} if pd.isna(run.get("blank_ea")) else {
@@ -105,7 +108,7 @@ def _fit_missing(db, trials: pd.DataFrame, cached: pd.DataFrame, say) -> pd.Data
     fresh = []
     for start in range(0, len(todo), FIT_BLOCK):
         block = todo[start:start + FIT_BLOCK]
-        fresh.append(analysis.fit_all(trials.loc[block], store.load_points(db, block)))
+        fresh.append(fit_all(trials.loc[block], store.load_points(db, block)))
         if len(todo) > FIT_BLOCK:
             say(f"  fitted {min(start + FIT_BLOCK, len(todo))} of {len(todo)}")
     return pd.concat([cached.loc[cached.index.intersection(trials.index)], *fresh])

@@ -31,7 +31,7 @@ cov = s^2 (J^T J)^{-1} with s^2 = RSS/(n - p) (as ``curve_fit(absolute_sigma=Fal
 early low-conversion window is fitted instead (``model='initial_slope'``); with fewer than :data:`MIN_SLOPE_POINTS`
 usable points the result is ``model='none'``.
 
-:mod:`catalog.batch` runs the same fits vectorised over many trials; the post-processing below (normalisation,
+:mod:`catalog.core.batch` runs the same fits vectorised over many trials; the post-processing below (normalisation,
 model choice, fallback, derived quantities, residual diagnostics) works on padded 2-D arrays and is shared by both,
 so that only the fitting cores differ and can be checked against each other.
 """
@@ -47,7 +47,7 @@ from scipy.optimize import least_squares
 __all__ = ["MODELS", "TraceFit", "fit_trace", "model_curve"]
 
 MODELS = ("zero", "first", "second")
-#: model codes used in the padded 2-D arrays shared with catalog.batch
+#: model codes used in the padded 2-D arrays shared with catalog.core.batch
 CODES = {"zero": 0, "first": 1, "second": 2, "initial_slope": 3, "none": 4}
 NAMES = np.array(["zero", "first", "second", "initial_slope", "none"], dtype=object)
 K_UNITS = np.array(["mol/s", "1/s", "1/(mol*s)", "", ""], dtype=object)
@@ -144,7 +144,7 @@ class ModelFit:
 
 
 # ---------------------------------------------------------------------------------------------------------------
-# Building blocks shared with catalog.batch
+# Building blocks shared with catalog.core.batch
 
 
 def curvature_basis(model: str, kappa, u, derivatives: int = 0) -> tuple:

@@ -26,13 +26,13 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from catalog import arrhenius
-from catalog.diagnostics import FLAG_CODES
+from catalog.analysis.diagnostics import FLAG_CODES
+from catalog.core import arrhenius
 from catalog.errors import CatalogError
 
 __all__ = ["METRICS", "Metric", "metric_values", "pareto_front", "rank"]
 
-# Two-sided 95 % normal quantile, matching the interval convention of catalog.arrhenius.
+# Two-sided 95 % normal quantile, matching the interval convention of catalog.core.arrhenius.
 _Z95 = float(stats.norm.ppf(0.5 + arrhenius.CONFIDENCE / 2))
 
 
@@ -237,7 +237,7 @@ def rank(catalysts: pd.DataFrame, metric: str = "tof", weights: dict | None = No
     top_k : int
         k of ``p_top_k``.
     exclude_flags, demote_flags : iterable of str
-        Flag codes (:data:`catalog.diagnostics.FLAG_CODES`). Excluded catalysts stay in the output, unranked;
+        Flag codes (:data:`catalog.analysis.diagnostics.FLAG_CODES`). Excluded catalysts stay in the output, unranked;
         demoted ones rank after every catalyst that is not demoted, in the point ranking and in every draw.
     n_draws, seed : int
         Monte Carlo size and seed.

@@ -17,7 +17,9 @@ import altair as alt
 import numpy as np
 import pandas as pd
 
-from catalog import analysis, arrhenius, batch
+from catalog.analysis.per_catalyst import standard_series
+from catalog.analysis.per_trial import trace_amounts
+from catalog.core import arrhenius, batch
 from catalog.errors import CatalogError
 from catalog.units import from_si
 
@@ -76,7 +78,7 @@ def arrhenius_frames(trials: pd.DataFrame, catalyst_ids: Iterable[str],
 
     Per-trial error bars are :math:`\\ln\\mathrm{TOF} \\pm 1.96\\,\\sigma_\\mathrm{TOF}/\\mathrm{TOF}` (delta method).
     The band is the 95 % confidence interval of the fitted line from the (ln A, Ea) covariance,
-    :func:`catalog.arrhenius.predict`.
+    :func:`catalog.core.arrhenius.predict`.
 
     Parameters
     ----------
@@ -102,7 +104,7 @@ def arrhenius_frames(trials: pd.DataFrame, catalyst_ids: Iterable[str],
         T = group["temperature"].to_numpy(float)
         tof = group["tof"].to_numpy(float)
         se = group["tof_se"].to_numpy(float)
-        main = analysis.standard_series(group)
+        main = standard_series(group)
         with np.errstate(divide="ignore", invalid="ignore"):
             ln_tof = np.log(tof)
             half = _Z95 * se / tof
@@ -136,7 +138,7 @@ def arrhenius_chart(results, catalyst_ids: Iterable[str]) -> alt.LayerChart:
 
     Parameters
     ----------
-    results : catalog.results.Results
+    results : catalog.analysis.results.Results
     catalyst_ids : iterable of str
 
     Returns
@@ -183,7 +185,7 @@ def trace_frames(trials: pd.DataFrame, points: pd.DataFrame, trial_ids: Iterable
     """Measured and fitted progress of each trial, ready to plot, thinned to fit :data:`MAX_ROWS`.
 
     Amounts come from :func:`catalog.analysis.trace_amounts` and the fitted curves from
-    :func:`catalog.batch.curve_values`; both are shifted by the fitted offset so every trial starts at zero.
+    :func:`catalog.core.batch.curve_values`; both are shifted by the fitted offset so every trial starts at zero.
     With ``normalise`` the progress is the conversion :math:`X = (n - a)/n_\\max`; trials without a stoichiometric
     maximum then have no conversion and are left out. Otherwise it is the amount of product in mmol.
 
@@ -217,7 +219,7 @@ def trace_frames(trials: pd.DataFrame, points: pd.DataFrame, trial_ids: Iterable
     codes, uniques = pd.factorize(sel["trial_id"], sort=False)
     t = sel["t"].to_numpy(float)
     fits = table.loc[uniques, ["model", "r0", "k", "plateau", "offset"]].reset_index(drop=True)
-    amount = analysis.trace_amounts(table, sel)
+    amount = trace_amounts(table, sel)
     model_at_points = batch.curve_values(fits, codes, t)
     n_max = table.loc[uniques, "n_max"].to_numpy(float) if normalise else None
 

@@ -21,10 +21,13 @@ import numpy as np
 import pandas as pd
 import vl_convert
 
-from catalog import __version__, analysis, charts, diagnostics, exports, ranking, store
+from catalog import __version__, store
+from catalog.analysis import diagnostics, ranking
+from catalog.analysis.results import Results, get_results
+from catalog.analysis.settings import Settings
+from catalog.core.hazard import CAUTION
 from catalog.errors import CatalogError
-from catalog.hazard import CAUTION
-from catalog.results import Results, get_results
+from catalog.present import charts, exports
 from catalog.units import from_si
 
 __all__ = ["data_hash", "render_report", "write_report"]
@@ -137,7 +140,7 @@ def _chart_block(chart, index: int, caption: str) -> str:
             f"{json.dumps(_EMBED_OPTIONS)}).catch(console.error);</script>")
 
 
-def _settings_table(settings: analysis.Settings) -> pd.DataFrame:
+def _settings_table(settings: Settings) -> pd.DataFrame:
     # Text from the start: a frame of mixed ints and floats would print the ints as floats.
     rows = [(name, str(value)) for name, value in asdict(settings).items()]
     rows.insert(1, ("reference_temperature [degC]", f"{float(from_si(settings.reference_temperature, 'degC')):.2f}"))
@@ -206,7 +209,7 @@ def render_report(results: Results, ranked: pd.DataFrame, top_k: int, points: pd
     ----------
     results : Results
     ranked : DataFrame
-        Output of ``catalog.ranking.rank`` for ``results.catalysts``.
+        Output of ``catalog.analysis.ranking.rank`` for ``results.catalysts``.
     top_k : int
         Size of the shortlist; its catalysts get trace plots.
     points : DataFrame
@@ -330,7 +333,7 @@ shortlisted catalysts.</p>
 """
 
 
-def write_report(db: str | os.PathLike | None, path: str | os.PathLike, settings: analysis.Settings,
+def write_report(db: str | os.PathLike | None, path: str | os.PathLike, settings: Settings,
                  ranked: pd.DataFrame | None = None, top_k: int = 3, metric: str = "tof") -> Path:
     """Analyse (or read the cached analysis of) the campaign in ``db`` and write the report to ``path``.
 
@@ -340,7 +343,7 @@ def write_report(db: str | os.PathLike | None, path: str | os.PathLike, settings
         The campaign database.
     path : str or PathLike
         Output ``.html`` file.
-    settings : analysis.Settings
+    settings : Settings
     ranked : DataFrame, optional
         A ranking already made (e.g. with the user's weights and exclusions); by default
         ``ranking.rank(results.catalysts, metric=metric, top_k=top_k)``.

@@ -6,7 +6,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from catalog.arrhenius import fit_line
+from catalog.core.arrhenius import fit_line
 
 __all__ = ["OrderFit", "reaction_order"]
 
@@ -39,7 +39,7 @@ def reaction_order(concentration, r0, r0_se=None):
 
     .. math:: r_0 = k\\,c^{\\,n} \\;\\Rightarrow\\; \\ln r_0 = \\ln k + n \\ln c
 
-    Weighted as in :func:`catalog.arrhenius.fit_arrhenius` when standard errors are given
+    Weighted as in :func:`catalog.core.arrhenius.fit_arrhenius` when standard errors are given
     (var ln r0 = (σ/r0)² plus the Paule-Mandel extra scatter); intervals use Student t with n − 2 degrees of freedom.
 
     Parameters

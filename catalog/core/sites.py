@@ -6,7 +6,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from catalog.signals import molar_mass
+from catalog.core.signals import molar_mass
 
 __all__ = ["SiteCount", "Turnover", "rate_per_area", "rate_per_mass", "site_amount", "ton", "tof"]
 

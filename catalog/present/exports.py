@@ -17,9 +17,10 @@ from openpyxl import Workbook
 from openpyxl.styles import Font
 from openpyxl.utils import get_column_letter
 
-from catalog import __version__, diagnostics, ranking
+from catalog import __version__
+from catalog.analysis import diagnostics, ranking
+from catalog.core.hazard import CAUTION
 from catalog.errors import CatalogError
-from catalog.hazard import CAUTION
 from catalog.units import from_si
 
 __all__ = ["FORMATS", "REQUIRED_COLUMNS", "flag_codes", "shortlist_table", "write_table"]
@@ -62,13 +63,13 @@ def shortlist_table(ranked: pd.DataFrame, results, top_k: int, metric: str = "to
     Parameters
     ----------
     ranked : DataFrame
-        Output of ``catalog.ranking.rank``: indexed by catalyst_id with rank, value, value_low, value_high,
+        Output of ``catalog.analysis.ranking.rank``: indexed by catalyst_id with rank, value, value_low, value_high,
         rank_low, rank_high, p_top_k, pareto, excluded, demoted, note.
-    results : catalog.results.Results
+    results : catalog.analysis.results.Results
     top_k : int
         The k of P(top-k); names the column ``p_top{k}``.
     metric : str
-        Name of the metric the ranking used (a key of ``catalog.ranking.METRICS`` or 'score'); ``metric_value`` and
+        Name of the metric the ranking used (a key of ``catalog.analysis.ranking.METRICS`` or 'score'); ``metric_value`` and
         its interval are in that metric's SI unit, named in ``metric_unit``.
 
     Returns
@@ -193,7 +194,7 @@ def write_table(frame: pd.DataFrame, path: str | os.PathLike, results=None) -> P
     frame : DataFrame
         Written without its index.
     path : str or PathLike
-    results : catalog.results.Results, optional
+    results : catalog.analysis.results.Results, optional
         Source of the settings sheet of an Excel file.
 
     Returns

@@ -50,7 +50,7 @@ import pyarrow as pa
 import pyarrow.csv as pa_csv
 from scipy.constants import R, zero_Celsius
 
-from catalog.signals import molar_mass, water_vapour_pressure
+from catalog.core.signals import molar_mass, water_vapour_pressure
 
 __all__ = [
     "CATALYST_HEADERS",

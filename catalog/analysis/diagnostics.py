@@ -12,7 +12,7 @@ Severities
 ``note``
     Worth knowing when comparing figures (an extrapolated reference value, a curved Arrhenius plot).
 ``caution``
-    A screening hazard estimate; it always carries :data:`catalog.hazard.CAUTION`.
+    A screening hazard estimate; it always carries :data:`catalog.core.hazard.CAUTION`.
 
 Sources of the thresholds (values live in :class:`catalog.analysis.Settings`)
 -----------------------------------------------------------------------------
@@ -33,7 +33,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from catalog import arrhenius, hazard
+from catalog.core import arrhenius, hazard
 
 __all__ = ["DEACTIVATION_MIN_TRIALS", "DISPERSION_MATCH", "FLAG_CODES", "FLAG_COLUMNS", "FLAG_SEVERITY",
            "LEVELLED_FRACTION", "evaluate", "loading_series"]
@@ -168,7 +168,7 @@ FLAG_SEVERITY: dict[str, str] = {
 }
 
 _ZERO_CELSIUS = 273.15
-# Two-sided 95 % normal quantile, matching the interval convention of catalog.arrhenius.
+# Two-sided 95 % normal quantile, matching the interval convention of catalog.core.arrhenius.
 _Z95 = float(stats.norm.ppf(0.5 + arrhenius.CONFIDENCE / 2))
 
 

@@ -17,8 +17,8 @@ import numpy as np
 import pandas as pd
 import periodictable
 
+from catalog.core.signals import water_vapour_pressure
 from catalog.errors import CatalogError, Problem, ValidationError
-from catalog.signals import water_vapour_pressure
 from catalog.units import UnitProblem, parse_header, si_converter
 
 CATALYSTS_FILE = "catalysts.csv"

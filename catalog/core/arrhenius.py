@@ -1,6 +1,6 @@
 """Arrhenius and Eyring fits with honest intervals, predictions, and the enhancement over a blank model.
 
-The straight-line fit behind both (:func:`fit_line`) is also used by :mod:`catalog.orders`.
+The straight-line fit behind both (:func:`fit_line`) is also used by :mod:`catalog.core.orders`.
 
 Interval convention throughout: a two-sided 95 % interval is ``estimate ± coverage_factor × standard error``, with
 the coverage factor a Student-t quantile on the residual degrees of freedom. When the fit has no residual degrees of
@@ -13,7 +13,8 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy import optimize, stats
-from scipy.constants import R, h, k as k_B
+from scipy.constants import R, h
+from scipy.constants import k as k_B
 
 from catalog.errors import CatalogError
 

@@ -1,0 +1,1 @@
+"""From stored trials to figures, flags and rankings (orchestrates the core)."""

@@ -1,0 +1,188 @@
+"""Per-catalyst figures: Arrhenius and Eyring fits, TOF and enhancement at the reference temperature, replicate
+spread, reaction order and the loading-series inputs."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+from catalog.analysis.per_trial import blank_charge, reactant_concentration
+from catalog.analysis.settings import SET_POINT_TOLERANCE, Settings
+from catalog.core import arrhenius
+from catalog.core.orders import reaction_order
+
+
+def _set_points(T: np.ndarray) -> np.ndarray:
+    """Group temperatures into set points: sorted values closer than SET_POINT_TOLERANCE share a label."""
+    order = np.argsort(T)
+    labels = np.empty(len(T), int)
+    labels[order] = np.concatenate([[0], np.cumsum(np.diff(T[order]) > SET_POINT_TOLERANCE)]) if len(T) else []
+    return labels
+
+
+def replicate_cv(T: np.ndarray, values: np.ndarray) -> float:
+    """Largest coefficient of variation among replicate trials at one set point (NaN without replicates).
+
+    .. math:: CV = s / \\bar{x}
+    """
+    labels = _set_points(T)
+    worst = np.nan
+    for label in np.unique(labels):
+        v = values[(labels == label) & np.isfinite(values)]
+        if len(v) >= 2 and np.mean(v) > 0:
+            cv = float(np.std(v, ddof=1) / np.mean(v))
+            worst = cv if not np.isfinite(worst) else max(worst, cv)
+    return worst
+
+
+def catalyst_figures(trial_table: pd.DataFrame, catalysts: pd.DataFrame, blank, settings: Settings) -> pd.DataFrame:
+    """One row per catalyst: Arrhenius/Eyring on TOF, figures at the reference temperature, spreads and series."""
+    T_ref = settings.reference_temperature
+    rows = []
+    catalysed = trial_table[trial_table["catalyst_id"].notna()]
+    blank_ea = blank.ea if blank is not None else np.nan
+    charge = blank_charge(trial_table)
+    if blank is not None:
+        at_ref = arrhenius.predict(blank, T_ref)
+        blank_ref = float(np.asarray(at_ref.value))
+        blank_log_se = float(np.log(np.asarray(at_ref.high) / blank_ref)) / blank.coverage_factor
+    for cid, group in catalysed.groupby("catalyst_id", sort=True):
+        T = group["temperature"].to_numpy(float)
+        main = standard_series(group)
+        row = {"catalyst_id": cid, "n_trials": len(group), "n_temperatures": len(np.unique(_set_points(T))),
+               "n_arrhenius": int(main.sum()), "t_min": float(T.min()), "t_max": float(T.max()),
+               "site_basis": "; ".join(sorted(set(group["site_basis"].dropna()))),
+               "models": "; ".join(f"{m} ×{n}" for m, n in group["model"].value_counts().items())}
+        row |= _arrhenius_row(T[main], group["tof"].to_numpy(float)[main], group["tof_se"].to_numpy(float)[main], T_ref)
+        row["delta_ea_blank"] = row["ea"] - blank_ea
+        n_sites = float(np.nanmedian(group["sites"])) if group["sites"].notna().any() else np.nan
+        mass = float(np.nanmedian(group["catalyst_mass"]))
+        if blank is not None and np.isfinite(row["tof_ref"]):
+            # Enhancement at T_ref for the catalyst's median charge and sites: E = 1 + TOF·N / r_b(T_ref), with
+            # var ln(E − 1) = var ln TOF + var ln r_b: the blank model's uncertainty often dominates.
+            gain = row["tof_ref"] * n_sites / (blank_ref * float(np.median(charge.loc[group.index[main]])))
+            spread = stats.norm.ppf(0.975) * np.hypot(row["tof_ref_log_se"], blank_log_se)
+            row["enhancement_ref"] = 1 + gain
+            row["enhancement_ref_low"] = 1 + gain * np.exp(-spread)
+            row["enhancement_ref_high"] = 1 + gain * np.exp(spread)
+            row["blank_extrapolated"] = bool(np.asarray(at_ref.extrapolated))
+        else:
+            row |= {"enhancement_ref": np.nan, "enhancement_ref_low": np.nan, "enhancement_ref_high": np.nan,
+                    "blank_extrapolated": False}
+        rate_ref = row["tof_ref"] * n_sites
+        row["rate_per_mass_ref"] = rate_ref / mass if np.isfinite(mass) else np.nan
+        area = catalysts.loc[cid, "surface_area"] if cid in catalysts.index else np.nan
+        row["rate_per_area_ref"] = rate_ref / (mass * area) if np.isfinite(area) else np.nan
+        row["ton_max"] = float(np.nanmax(group["ton"])) if group["ton"].notna().any() else np.nan
+        row["replicate_cv"] = replicate_cv(T[main], group["tof"].to_numpy(float)[main])
+        row |= _order_row(group)
+        row["median_sites"] = n_sites
+        row["min_enhancement"] = float(np.nanmin(group["enhancement"])) if group["enhancement"].notna().any() else np.nan
+        row["max_weisz_prater"] = _nanmax(group["weisz_prater"])
+        row["max_mears"] = _nanmax(group["mears"])
+        row["max_adiabatic_rise"] = _nanmax(group["adiabatic_rise"])
+        rows.append(row)
+    out = pd.DataFrame(rows)
+    if out.empty:
+        return out
+    out = out.set_index("catalyst_id")
+    return out.join(catalysts[["metal", "support", "metal_loading", "dispersion", "price_per_gram", "description"]],
+                    how="left")
+
+
+def standard_series(group: pd.DataFrame) -> np.ndarray:
+    """Trials of one catalyst run at its standard initial concentration: the Arrhenius and replicate set.
+
+    TOF of a reaction that is not zero order depends on concentration, so trials of a concentration series would
+    bend an Arrhenius plot; illuminated trials are kept apart for the same reason. The standard concentration is the one measured at the most set points (then the one
+    with the most trials); trials without a known concentration count as one more group.
+    """
+    c = reactant_concentration(group)
+    level = np.where(np.isfinite(c), np.round(np.log(np.where(c > 0, c, 1.0)), 3), np.inf)
+    # Illuminated trials measure a different (photo-assisted) rate: they never join the dark series.
+    lit = np.nan_to_num(group["light_power"].to_numpy(float)) > 0
+    key = np.array([f"{'lit' if on else 'dark'} {x}" for on, x in zip(lit, level)])
+    labels = _set_points(group["temperature"].to_numpy(float))
+    best, best_score = None, (-1, -1)
+    for value in np.unique(key):
+        at = key == value
+        score = (len(np.unique(labels[at])), int(at.sum()))
+        if score > best_score:
+            best, best_score = at, score
+    return best
+
+
+def _nanmax(series: pd.Series) -> float:
+    return float(np.nanmax(series)) if series.notna().any() else np.nan
+
+
+_ARRHENIUS_EMPTY = dict.fromkeys(
+    ["ea", "ea_se", "ea_low", "ea_high", "ln_a", "ln_a_low", "ln_a_high", "dh", "dh_low", "dh_high", "ds", "ds_low",
+     "ds_high", "curvature_p", "birge", "r2_arrhenius", "tof_ref_log_se"], np.nan)
+
+
+def _arrhenius_row(T: np.ndarray, tof: np.ndarray, tof_se: np.ndarray, T_ref: float) -> dict:
+    """Arrhenius and Eyring on TOF, and TOF at T_ref with its 95 % interval (empty cells when it cannot be had)."""
+    row = dict(_ARRHENIUS_EMPTY)
+    fit = None
+    good = np.isfinite(tof) & (tof > 0)
+    # Readings a few tenths of a kelvin apart are replicates at one set point, not an Arrhenius series.
+    if len(np.unique(_set_points(T[good]))) >= 2:
+        try:
+            fit = arrhenius.fit_arrhenius(T, tof, tof_se)
+        except (arrhenius.TooFewTemperatures, ValueError):
+            fit = None
+    if fit is None:
+        # One set point: TOF at T_ref only if T_ref is that set point (no Ea, so no extrapolation).
+        at_ref = good & (np.abs(T - T_ref) <= SET_POINT_TOLERANCE)
+        if at_ref.sum() >= 1:
+            values, stated = tof[at_ref], tof_se[at_ref]
+            n = len(values)
+            mean = float(np.mean(values))
+            # The standard error of the mean is the larger of the replicate scatter and the trials' own errors;
+            # with n replicates the 95 % interval takes Student t on n − 1 degrees of freedom (a single trial
+            # has only its stated error, so the normal quantile).
+            stated_sem = float(np.sqrt(np.mean(stated**2) / n))
+            sem = max(float(np.std(values, ddof=1) / np.sqrt(n)), stated_sem) if n > 1 else stated_sem
+            half = (stats.t.ppf(0.975, n - 1) if n > 1 else stats.norm.ppf(0.975)) * sem
+            row |= {"tof_ref": mean, "tof_ref_low": max(mean - half, 0.0), "tof_ref_high": mean + half,
+                    "tof_ref_extrapolated": False, "tof_ref_log_se": sem / mean}
+        else:
+            row |= {"tof_ref": np.nan, "tof_ref_low": np.nan, "tof_ref_high": np.nan,
+                    "tof_ref_extrapolated": bool(good.any()), "tof_ref_log_se": np.nan}
+        return row
+    eyring = arrhenius.fit_eyring(T, tof, tof_se)
+    pred = arrhenius.predict(fit, T_ref)
+    row |= {
+        "ea": fit.ea, "ea_se": fit.ea_se, "ea_low": fit.ea_low, "ea_high": fit.ea_high,
+        "ln_a": fit.ln_a, "ln_a_low": fit.ln_a_low, "ln_a_high": fit.ln_a_high,
+        "dh": eyring.dh, "dh_low": eyring.dh_low, "dh_high": eyring.dh_high,
+        "ds": eyring.ds, "ds_low": eyring.ds_low, "ds_high": eyring.ds_high,
+        "curvature_p": fit.curvature_p, "birge": fit.birge, "r2_arrhenius": fit.r2,
+        "tof_ref": float(np.asarray(pred.value)), "tof_ref_low": float(np.asarray(pred.low)),
+        "tof_ref_high": float(np.asarray(pred.high)), "tof_ref_extrapolated": bool(np.asarray(pred.extrapolated)),
+        "tof_ref_log_se": float(np.log(np.asarray(pred.high) / np.asarray(pred.value))) / fit.coverage_factor,
+    }
+    return row
+
+
+def _order_row(group: pd.DataFrame) -> dict:
+    """Reaction order from trials at one set point that differ in initial concentration (the largest such series)."""
+    empty = {"order": np.nan, "order_low": np.nan, "order_high": np.nan, "order_temperature": np.nan}
+    c = reactant_concentration(group)
+    labels = _set_points(group["temperature"].to_numpy(float))
+    dark = np.nan_to_num(group["light_power"].to_numpy(float)) <= 0
+    best = None
+    for label in np.unique(labels):
+        at = (labels == label) & np.isfinite(c) & (c > 0) & dark
+        if len(np.unique(np.round(c[at], 9))) >= 3 and (best is None or at.sum() > best.sum()):
+            best = at
+    if best is None:
+        return empty
+    try:
+        fit = reaction_order(c[best], group["rate"].to_numpy(float)[best], group["rate_se"].to_numpy(float)[best])
+    except ValueError:
+        return empty
+    return {"order": fit.order, "order_low": fit.low, "order_high": fit.high,
+            "order_temperature": float(np.mean(group["temperature"].to_numpy(float)[best]))}

@@ -1,0 +1,207 @@
+"""Per-trial figures: signal to amount, the kinetic fits, the blank model, TOF, TON and the trial-level numbers.
+
+1. :func:`trace_amounts` — raw SI signal → amount of product above the first reading (``catalog.core.signals``).
+2. :func:`fit_all` — integrated rate laws for every trial at once (``catalog.core.batch``).
+3. :func:`trial_figures` — blank model, sites, TOF, TON, per-mass/per-area rates, enhancement, photon yield,
+   transport numbers and hazard estimates per trial.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from catalog.analysis.settings import TRIAL_FIT_COLUMNS
+from catalog.core import arrhenius, batch, hazard, photons, signals, sites, transport
+
+#: Trial columns each measurement's conversion reads (named as the converters' keywords).
+_CONDITIONS = {
+    "gas_volume": ("gas_pressure", "gas_temperature"),
+    "mass_loss": ("gas_molar_mass",),
+    "pressure": ("headspace_volume", "temperature"),
+    "concentration": ("liquid_volume",),
+}
+
+
+def trace_amounts(trials: pd.DataFrame, points: pd.DataFrame) -> np.ndarray:
+    """Amount of product (mol) at every trace point, relative to the trial's first reading.
+
+    Each trial's first reading is subtracted before conversion: every conversion is linear in the signal, and
+    working with increments keeps a 31 g tare or a 101 kPa baseline from swamping a milligram signal in the fit.
+    The remaining offset (dead volume, drift before the start) is fitted by the rate-law models.
+
+    .. math:: n_i = f_{\\mathrm{kind}}(y_i - y_0;\\ \\text{trial conditions})
+
+    Parameters
+    ----------
+    trials : DataFrame
+        Store layout, one row per trial, indexed by ``trial_id``.
+    points : DataFrame
+        ``trial_id, t, value`` in SI, in time order within each trial.
+    """
+    codes, uniques = pd.factorize(points["trial_id"], sort=False)
+    return _amounts(trials.loc[uniques], codes, points["value"].to_numpy(float))
+
+
+def _amounts(order: pd.DataFrame, codes: np.ndarray, value: np.ndarray) -> np.ndarray:
+    """:func:`trace_amounts` on integer trial codes; ``order`` holds the trial rows in code order.
+
+    Trial conditions are gathered per point by code rather than by label, because a label lookup per point of a
+    campaign-sized trace table dominates the whole analysis.
+    """
+    # pd.factorize numbers codes in order of first appearance, so a point opens its trial's series exactly when its
+    # code exceeds every code before it: the first readings come out in one pass, without sorting.
+    opens = np.ones(len(codes), bool)
+    opens[1:] = codes[1:] > np.maximum.accumulate(codes)[:-1]
+    delta = value - value[np.flatnonzero(opens)][codes]
+    amount = np.full(len(codes), np.nan)
+    kinds = order["measurement"].to_numpy(object)
+    for kind in signals.MEASUREMENTS:
+        at = (kinds == kind)[codes]
+        if not at.any():
+            continue
+        sub = codes[at]
+        conditions = {name: order[name].to_numpy(float)[sub] for name in _CONDITIONS[kind]}
+        if kind == "gas_volume":
+            conditions["over_water"] = order["collected_over_water"].fillna(False).to_numpy(bool)[sub]
+        # For mass_loss the converter takes the first reading of the array as zero; every trial's increments
+        # start at 0, so the whole group can go through in one call.
+        amount[at] = signals.to_amount(kind, delta[at], **conditions)
+    return amount
+
+
+def fit_all(trials: pd.DataFrame, points: pd.DataFrame) -> pd.DataFrame:
+    """Fit every trial's trace at once; one row per trial (indexed by trial_id) with the kinetic fit columns."""
+    codes, uniques = pd.factorize(points["trial_id"], sort=False)
+    order = trials.loc[uniques]
+    n_max = (order["limiting_amount"] * order["product_ratio"]).to_numpy(float)
+    amount = _amounts(order, codes, points["value"].to_numpy(float))
+    fits = batch.fit_traces(codes, points["t"].to_numpy(float), amount, n_max)
+    fits.index = pd.Index(uniques, name="trial_id")
+    return fits[list(TRIAL_FIT_COLUMNS)]
+
+
+def blank_charge(trials: pd.DataFrame) -> pd.Series:
+    """What the blank rate scales with for each trial: its charge of limiting reactant, mol, or 1.
+
+    The uncatalysed reaction is taken as first order in the limiting reactant, so a blank run with 1 mmol predicts
+    half the blank rate of a catalysed trial charged with 2 mmol. When some blank has no ``limiting_amount`` the
+    blank model stays in absolute mol/s (every trial assumed charged like the blanks) and the charge is 1; a trial
+    without a charge is taken as charged like the median blank.
+    """
+    amount = trials["limiting_amount"].astype(float)
+    blank_amount = amount[trials["catalyst_id"].isna()]
+    if blank_amount.empty or not np.isfinite(blank_amount).all():
+        return pd.Series(1.0, index=trials.index)
+    return amount.where(np.isfinite(amount), float(blank_amount.median()))
+
+
+def blank_model(trials: pd.DataFrame, fits: pd.DataFrame) -> arrhenius.ArrheniusFit | None:
+    """Arrhenius fit of the blank trials' initial rates per unit charge, or None with fewer than two temperatures.
+
+    .. math:: \\frac{r_{0,b}}{\\nu\\, n_{A,0}} = A_b\\, e^{-E_{a,b}/RT}
+    """
+    blanks = trials.index[trials["catalyst_id"].isna()]
+    if len(blanks) == 0:
+        return None
+    f = fits.loc[fits.index.intersection(blanks)]
+    per = trials.loc[f.index, "product_ratio"] * blank_charge(trials).loc[f.index]
+    try:
+        return arrhenius.fit_arrhenius(trials.loc[f.index, "temperature"], f["r0"] / per, f["r0_se"] / per)
+    except (arrhenius.TooFewTemperatures, ValueError):
+        return None
+
+
+def trial_figures(trials: pd.DataFrame, catalysts: pd.DataFrame, fits: pd.DataFrame) -> tuple[pd.DataFrame, object]:
+    """Per-trial figures: sites, TOF over the blank, TON, normalised rates, enhancement, photons, transport, hazard.
+
+    Returns the trial table (indexed by trial_id) and the blank Arrhenius model (or None).
+    """
+    out = trials.join(fits, how="inner")
+    blank = blank_model(trials, fits)
+    T = out["temperature"].to_numpy(float)
+    # Rates on the basis of the limiting reactant (mol converted per s), so a trial read as hydrogen (3 per
+    # reactant) and one read as borate (1 per reactant) give the same TOF and share one blank model.
+    out["rate"] = out["r0"] / out["product_ratio"]
+    out["rate_se"] = out["r0_se"] / out["product_ratio"]
+    r0 = out["rate"].to_numpy(float)
+    r0_se = out["rate_se"].to_numpy(float)
+    catalysed = out["catalyst_id"].notna().to_numpy()
+    charge = blank_charge(trials).reindex(out.index).to_numpy(float)
+
+    if blank is not None:
+        ln_blank = arrhenius.predict(blank, T)
+        blank_rate = np.asarray(ln_blank.value, float) * charge
+        # A symmetric standard error from the 95 % interval half-width on the log scale (what TOF propagation needs).
+        blank_se = blank_rate * (np.log(np.asarray(ln_blank.high, float)) - np.log(np.asarray(ln_blank.value, float))
+                                 ) / blank.coverage_factor
+        ratio = arrhenius.enhancement(r0 / charge, r0_se / charge, blank, T)
+        out["blank_rate"] = np.where(catalysed, blank_rate, np.nan)
+        out["blank_extrapolated"] = np.where(catalysed, np.asarray(ln_blank.extrapolated, bool), False)
+        out["enhancement"] = np.where(catalysed, ratio.ratio, np.nan)
+        out["enhancement_low"] = np.where(catalysed, ratio.low, np.nan)
+        out["enhancement_high"] = np.where(catalysed, ratio.high, np.nan)
+    else:
+        blank_rate = np.zeros(len(out))
+        blank_se = np.zeros(len(out))
+        for column in ("blank_rate", "enhancement", "enhancement_low", "enhancement_high"):
+            out[column] = np.nan
+        out["blank_extrapolated"] = False
+
+    site_table = _site_table(catalysts)
+    per_mass = site_table.reindex(out["catalyst_id"])
+    mass = out["catalyst_mass"].to_numpy(float)
+    n_sites = per_mass["sites_per_kg"].to_numpy(float) * mass
+    out["sites"] = n_sites
+    out["site_basis"] = per_mass["basis"].to_numpy()
+    turnover = sites.tof(r0, r0_se, np.where(catalysed, blank_rate, 0.0), np.where(catalysed, blank_se, 0.0), n_sites)
+    out["tof"] = np.where(catalysed, turnover.tof, np.nan)
+    out["tof_se"] = np.where(catalysed, turnover.tof_se, np.nan)
+    # Turnovers of the limiting reactant, the same basis as the TOF.
+    converted = out["final_amount"].to_numpy(float) / out["product_ratio"].to_numpy(float)
+    out["ton"] = np.where(catalysed, sites.ton(converted, n_sites), np.nan)
+    out["rate_per_mass"] = np.where(catalysed, sites.rate_per_mass(r0, mass), np.nan)
+    area = per_mass["surface_area"].to_numpy(float)
+    out["rate_per_area"] = np.where(catalysed & np.isfinite(area), sites.rate_per_area(r0, mass, area), np.nan)
+
+    flux = photons.photon_flux(out["light_power"].to_numpy(float), out["light_wavelength"].to_numpy(float))
+    out["photon_flux"] = flux
+    out["quantum_yield"] = photons.apparent_quantum_yield(r0, flux)
+
+    # Transport numbers for a suspended particle: the rate per particle volume against diffusion into (Weisz-Prater)
+    # and film transport to (Mears) one particle.
+    consumption = r0
+    particle_volume = mass / out["particle_density"].to_numpy(float)
+    radius = out["particle_size"].to_numpy(float) / 2
+    c_bulk = reactant_concentration(out)
+    out["weisz_prater"] = transport.weisz_prater(consumption / particle_volume, radius, c_bulk,
+                                                 out["effective_diffusivity"].to_numpy(float))
+    out["mears"] = transport.mears(consumption / mass, out["particle_density"].to_numpy(float), radius, 1.0,
+                                   out["mass_transfer_coefficient"].to_numpy(float), c_bulk)
+
+    rise = hazard.adiabatic_temperature_rise(out["reaction_enthalpy"].to_numpy(float),
+                                             out["limiting_amount"].to_numpy(float),
+                                             out["heat_capacity"].to_numpy(float))
+    out["adiabatic_rise"] = rise.delta_t_ad
+    out["hazard_band"] = rise.band
+    closed = (out["measurement"] == "pressure").to_numpy()
+    burst = hazard.pressure_rise(out["n_max"].to_numpy(float), out["headspace_volume"].to_numpy(float), T)
+    out["pressure_rise_max"] = np.where(closed, burst.delta_p, np.nan)
+    return out, blank
+
+
+def reactant_concentration(trials: pd.DataFrame) -> np.ndarray:
+    """Initial concentration of the limiting reactant, mol/m³: as given, else amount over liquid volume."""
+    given = trials["initial_concentration"].to_numpy(float)
+    derived = trials["limiting_amount"].to_numpy(float) / trials["liquid_volume"].to_numpy(float)
+    return np.where(np.isfinite(given), given, derived)
+
+
+def _site_table(catalysts: pd.DataFrame) -> pd.DataFrame:
+    """Active sites per kg of catalyst and the basis of the count, one row per catalyst."""
+    rows = []
+    for cid, c in catalysts.iterrows():
+        count = sites.site_amount(1.0, c["metal"] if isinstance(c["metal"], str) else None,
+                                  c["metal_loading"], c["dispersion"], c["site_density"])
+        rows.append((cid, count.moles, count.basis, c["surface_area"]))
+    return pd.DataFrame(rows, columns=["catalyst_id", "sites_per_kg", "basis", "surface_area"]).set_index("catalyst_id")

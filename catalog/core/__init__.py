@@ -1,0 +1,1 @@
+"""The pure physics and statistics: numpy in SI units, no I/O."""

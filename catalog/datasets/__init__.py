@@ -1,0 +1,1 @@
+"""Invented demo and known-truth campaigns."""

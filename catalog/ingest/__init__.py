@@ -1,0 +1,1 @@
+"""Reading campaign sources and validating their typed values (pure, no SQL)."""

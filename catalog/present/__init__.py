@@ -1,0 +1,1 @@
+"""Display units, files, charts and the report."""
