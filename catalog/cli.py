@@ -20,7 +20,7 @@ from catalog.core import hazard
 from catalog.errors import CatalogError
 from catalog.ingest.campaign import CATALYST_COLUMNS, TRIAL_COLUMNS, read_source
 from catalog.present import exports, report
-from catalog.units import UnitProblem, from_si, parse_temperature
+from catalog.units import UnitProblem, celsius, from_si, parse_temperature
 
 EXIT_USER_ERROR = 2
 EXIT_INTERNAL = 3
@@ -55,7 +55,7 @@ def cmd_trials(args: argparse.Namespace) -> int:
     shown = pd.DataFrame({
         "trial": trials["trial_id"],
         "catalyst": trials["catalyst_id"].fillna("(blank)"),
-        "T [°C]": (trials["temperature"] - 273.15).round(2),
+        "T [°C]": celsius(trials["temperature"]).round(2),
         "measurement": trials["measurement"],
         "mass [mg]": (trials["catalyst_mass"] * 1e6).round(3),
         "points": trials["n_points"],
@@ -236,7 +236,7 @@ def cmd_rank(args: argparse.Namespace) -> int:
         columns={"metric_value": args.metric, "metric_low": f"{args.metric}_low", "metric_high": f"{args.metric}_high"})
     with pd.option_context("display.max_rows", None, "display.width", 220, "display.max_colwidth", 40):
         print(shown.to_string(index=False, na_rep="", float_format=lambda v: f"{v:.4g}"))
-    print(f"\nreference temperature {found.settings.reference_temperature - 273.15:.2f} °C; metric {args.metric}; "
+    print(f"\nreference temperature {celsius(found.settings.reference_temperature):.2f} °C; metric {args.metric}; "
           f"95 % intervals; P(top {args.top}) from {args.draws} Monte Carlo draws (seed {args.seed})")
     flagged = found.flags[found.flags["scope"] == "catalyst"]
     if not flagged.empty:
@@ -265,7 +265,7 @@ def cmd_analyse(args: argparse.Namespace) -> int:
         b = found.blank
         print(f"blank (uncatalysed) model: Ea = {b['ea'] / 1e3:.1f} kJ/mol "
               f"[{b['ea_low'] / 1e3:.1f}, {b['ea_high'] / 1e3:.1f}] from {b['n']} trials, "
-              f"{b['t_min'] - 273.15:.1f}-{b['t_max'] - 273.15:.1f} °C")
+              f"{celsius(b['t_min']):.1f}-{celsius(b['t_max']):.1f} °C")
     else:
         print("no blank model: enhancement over the blank and blank-corrected TOF need uncatalysed trials at two or more temperatures")
     counts = found.flags.groupby(["scope", "code"]).size()

@@ -112,6 +112,20 @@ def from_si(values, reference: str):
     return (values - shift) / scale
 
 
+#: 0 °C in kelvin, exact by the definition of the Celsius scale (BIPM SI Brochure, 9th ed., 2.3.1).
+ZERO_CELSIUS = 273.15
+
+
+def celsius(kelvin):
+    """Kelvin (array or scalar) to degrees Celsius for display: :math:`\\theta = T - 273.15`."""
+    return np.asarray(kelvin, dtype=float) - ZERO_CELSIUS if np.ndim(kelvin) else float(kelvin) - ZERO_CELSIUS
+
+
+def kelvin(celsius_value):
+    """Degrees Celsius (array or scalar) to kelvin."""
+    return np.asarray(celsius_value, dtype=float) + ZERO_CELSIUS if np.ndim(celsius_value) else float(celsius_value) + ZERO_CELSIUS
+
+
 def _dimension_words(unit: pint.Unit) -> str:
     dim = str(unit.dimensionality)
     return "a dimensionless number" if dim == "dimensionless" else f"dimension {dim}"

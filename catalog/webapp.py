@@ -31,7 +31,7 @@ from catalog.datasets import synth
 from catalog.errors import CatalogError, Problem, ValidationError
 from catalog.ingest import campaign
 from catalog.present import charts, exports, report
-from catalog.units import from_si
+from catalog.units import celsius, from_si, kelvin
 
 PAGE_DIR = Path(__file__).with_name("webapp_pages")
 SAMPLE_FOLDER = Path(__file__).resolve().parent.parent / "sample_campaign"
@@ -126,11 +126,6 @@ def traces(db: str, res: results.Results, trial_ids) -> pd.DataFrame:
 # --------------------------------------------------------------------------------------------------- formatting
 
 
-def to_c(kelvin):
-    """Kelvin to degrees Celsius for display."""
-    return from_si(np.asarray(kelvin, dtype=float), "degC")
-
-
 def flag_words(code: str) -> tuple[str, str]:
     """(title, explanation) of a flag code; an unknown code is shown as itself, never dropped."""
     return diagnostics.FLAG_CODES.get(code, (code, ""))
@@ -182,7 +177,7 @@ def trial_table(trials: pd.DataFrame) -> pd.DataFrame:
     return pd.DataFrame({
         "trial": trials.index,
         "catalyst": trials["catalyst_id"].fillna(BLANK_LABEL).to_numpy(),
-        "T [°C]": np.round(to_c(trials["temperature"]), 2),
+        "T [°C]": np.round(celsius(trials["temperature"]), 2),
         "measurement": trials["measurement"].map(MEASUREMENT_LABELS).to_numpy(),
         "mass [mg]": np.round(from_si(trials["catalyst_mass"].to_numpy(float), "mg"), 3),
         "model": trials["model"].to_numpy(),
@@ -607,7 +602,7 @@ def show_trial(db: str, res: results.Results, trial_id: str, compact: bool = Fal
     # Three per row: six metric values side by side get cut off at a laptop width.
     cols = st.columns(3)
     figures = [
-        ("Temperature", f"{to_c(row['temperature']):.1f} °C"),
+        ("Temperature", f"{celsius(row['temperature']):.1f} °C"),
         ("Initial rate r0", f"{from_si(row['r0'], 'umol/min'):.3g} µmol/min"),
         ("TOF", "—" if pd.isna(row["tof"]) else f"{row['tof']:.3g} 1/s ± {row['tof_se']:.2g}"),
         ("Rate law", f"{row['model']} order" if row["model"] in ("zero", "first", "second") else str(row["model"])),
@@ -661,7 +656,7 @@ def page_trials() -> None:
                               format_func=MEASUREMENT_LABELS.get, placeholder="all")
         operators = c.multiselect("Operator", sorted(trials["operator"].dropna().unique()), key="trials_operator",
                                   placeholder="all")
-        t_c = to_c(trials["temperature"])
+        t_c = celsius(trials["temperature"])
         low, high = float(np.floor(t_c.min())), float(np.ceil(t_c.max()))
         span = a.slider("Temperature [°C]", low, max(high, low + 1), (low, max(high, low + 1)), key="trials_T")
         started = trials["started_at"].dropna()
@@ -708,7 +703,7 @@ def _temperature_input(key: str) -> float:
                             help="TOF, rate over the blank and rates per mass are compared at this temperature")
     unit = st.radio("unit of the reference temperature", ("°C", "K"), key=f"{key}_unit", horizontal=True,
                     label_visibility="collapsed")
-    return float(value) if unit == "K" else float(value) + 273.15
+    return float(value) if unit == "K" else kelvin(float(value))
 
 
 def _metric_title(name: str) -> str:
@@ -739,7 +734,7 @@ def page_compare() -> None:
     if not chosen:
         st.info("Pick one or more catalysts.")
         return
-    tabs = st.tabs(["Traces", "Arrhenius", f"TOF at {to_c(T_ref):.1f} °C", "Rate over the blank", "Trade-offs",
+    tabs = st.tabs(["Traces", "Arrhenius", f"TOF at {celsius(T_ref):.1f} °C", "Rate over the blank", "Trade-offs",
                     "Flags"])
     with tabs[0]:
         st.caption("Each catalyst's trials, conversion against time, coloured by temperature; lines are the fitted "
@@ -839,7 +834,7 @@ def page_rank() -> None:
         ranked = ranking.rank(res.catalysts, metric=metric, weights=weights or None, top_k=top_k,
                               exclude_flags=tuple(exclude), demote_flags=tuple(demote))
         label = "weighted score" if metric == "score" else ranking.METRICS[metric].title
-        st.subheader(f"Ranking: {label} ({to_c(T_ref):.1f} °C)")
+        st.subheader(f"Ranking: {label} ({celsius(T_ref):.1f} °C)")
         shown = rank_table(ranked, res, metric, top_k)
         # Columns that say nothing for this ranking are dropped; the flags column never is, and is drawn wide.
         shown = shown.drop(columns=[c for c in ("left out", "ranked last", "note") if not shown[c].any()])

@@ -31,9 +31,10 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
 from catalog.core import arrhenius, hazard
+from catalog.core.stats import Z95
+from catalog.units import celsius
 
 __all__ = ["DEACTIVATION_MIN_TRIALS", "DISPERSION_MATCH", "FLAG_CODES", "FLAG_COLUMNS", "FLAG_SEVERITY",
            "LEVELLED_FRACTION", "evaluate", "loading_series"]
@@ -167,9 +168,7 @@ FLAG_SEVERITY: dict[str, str] = {
     "pressure-build-up": "caution",
 }
 
-_ZERO_CELSIUS = 273.15
 # Two-sided 95 % normal quantile, matching the interval convention of catalog.core.arrhenius.
-_Z95 = float(stats.norm.ppf(0.5 + arrhenius.CONFIDENCE / 2))
 
 
 def _flag(scope: str, record_id, code: str, message: str, value: float, threshold: float) -> dict:
@@ -185,7 +184,7 @@ def _column(table: pd.DataFrame, name: str) -> pd.Series:
 
 
 def _kelvin_text(T: float) -> str:
-    return f"{T:.2f} K ({T - _ZERO_CELSIUS:.1f} °C)"
+    return f"{T:.2f} K ({celsius(T):.1f} °C)"
 
 
 def _trial_flags(trials: pd.DataFrame, settings) -> list[dict]:
@@ -303,7 +302,7 @@ def loading_series(catalysts: pd.DataFrame) -> pd.DataFrame:
     tof = _column(catalysts, "tof_ref")
     dispersion = _column(catalysts, "dispersion")
     usable = (rate > 0) & (tof > 0) & (dispersion > 0) & catalysts["metal"].notna() & catalysts["support"].notna()
-    ln_se = (np.log(_column(catalysts, "tof_ref_high")) - np.log(_column(catalysts, "tof_ref_low"))) / (2 * _Z95)
+    ln_se = (np.log(_column(catalysts, "tof_ref_high")) - np.log(_column(catalysts, "tof_ref_low"))) / (2 * Z95)
     rows = []
     for (metal, support), group in catalysts[usable].groupby(["metal", "support"], sort=True):
         # Dispersion clusters: sorted ln D with a gap wider than the match tolerance starts a new cluster.

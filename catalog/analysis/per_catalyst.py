@@ -5,12 +5,12 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
 from catalog.analysis.per_trial import blank_charge, reactant_concentration
 from catalog.analysis.settings import SET_POINT_TOLERANCE, Settings
 from catalog.core import arrhenius
 from catalog.core.orders import reaction_order
+from catalog.core.stats import Z95, t95
 
 
 def _set_points(T: np.ndarray) -> np.ndarray:
@@ -62,7 +62,7 @@ def catalyst_figures(trial_table: pd.DataFrame, catalysts: pd.DataFrame, blank, 
             # Enhancement at T_ref for the catalyst's median charge and sites: E = 1 + TOF·N / r_b(T_ref), with
             # var ln(E − 1) = var ln TOF + var ln r_b: the blank model's uncertainty often dominates.
             gain = row["tof_ref"] * n_sites / (blank_ref * float(np.median(charge.loc[group.index[main]])))
-            spread = stats.norm.ppf(0.975) * np.hypot(row["tof_ref_log_se"], blank_log_se)
+            spread = Z95 * np.hypot(row["tof_ref_log_se"], blank_log_se)
             row["enhancement_ref"] = 1 + gain
             row["enhancement_ref_low"] = 1 + gain * np.exp(-spread)
             row["enhancement_ref_high"] = 1 + gain * np.exp(spread)
@@ -145,7 +145,7 @@ def _arrhenius_row(T: np.ndarray, tof: np.ndarray, tof_se: np.ndarray, T_ref: fl
             # has only its stated error, so the normal quantile).
             stated_sem = float(np.sqrt(np.mean(stated**2) / n))
             sem = max(float(np.std(values, ddof=1) / np.sqrt(n)), stated_sem) if n > 1 else stated_sem
-            half = (stats.t.ppf(0.975, n - 1) if n > 1 else stats.norm.ppf(0.975)) * sem
+            half = (t95(n - 1) if n > 1 else Z95) * sem
             row |= {"tof_ref": mean, "tof_ref_low": max(mean - half, 0.0), "tof_ref_high": mean + half,
                     "tof_ref_extrapolated": False, "tof_ref_log_se": sem / mean}
         else:

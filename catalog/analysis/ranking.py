@@ -24,16 +24,14 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
 from catalog.analysis.diagnostics import FLAG_CODES
-from catalog.core import arrhenius
+from catalog.core.stats import Z95
 from catalog.errors import CatalogError
 
 __all__ = ["METRICS", "Metric", "metric_values", "pareto_front", "rank"]
 
 # Two-sided 95 % normal quantile, matching the interval convention of catalog.core.arrhenius.
-_Z95 = float(stats.norm.ppf(0.5 + arrhenius.CONFIDENCE / 2))
 
 
 @dataclass(frozen=True)
@@ -143,7 +141,7 @@ def metric_values(catalysts: pd.DataFrame, metric: str) -> pd.DataFrame:
         upper = f(high) - centre
         lower = centre - f(low.where(low > 0) if m.log_scale else low)
     halves = pd.concat([upper, lower], axis=1).where(lambda h: np.isfinite(h) & (h >= 0))
-    sigma = halves.mean(axis=1) / _Z95
+    sigma = halves.mean(axis=1) / Z95
     if m.se is not None:
         se = _numeric(catalysts, m.se)
         sigma = se.where(np.isfinite(se) & (se >= 0), sigma)

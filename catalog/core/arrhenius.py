@@ -16,6 +16,7 @@ from scipy import optimize, stats
 from scipy.constants import R, h
 from scipy.constants import k as k_B
 
+from catalog.core.stats import CONFIDENCE, Z95
 from catalog.errors import CatalogError
 
 __all__ = [
@@ -35,7 +36,6 @@ __all__ = [
     "predict",
 ]
 
-CONFIDENCE = 0.95
 # Readings that differ by less than this (K) are one set point: thermocouple noise must not pass as a second
 # temperature and make an ill-conditioned Ea look determined.
 TEMPERATURE_RESOLUTION = 0.01
@@ -154,7 +154,7 @@ def fit_line(x, y, y_se=None):
     tss = float((w * (y - y_bar) ** 2).sum())
     if weighted:
         scale = 1.0
-        coverage = stats.t.ppf(0.5 + CONFIDENCE / 2, dof) if dof > 0 else stats.norm.ppf(0.5 + CONFIDENCE / 2)
+        coverage = stats.t.ppf(0.5 + CONFIDENCE / 2, dof) if dof > 0 else Z95
     else:
         birge = np.nan
         scale = chi2 / dof if dof > 0 else np.nan

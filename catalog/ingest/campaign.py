@@ -19,7 +19,7 @@ import periodictable
 
 from catalog.core.signals import water_vapour_pressure
 from catalog.errors import CatalogError, Problem, ValidationError
-from catalog.units import UnitProblem, parse_header, si_converter
+from catalog.units import UnitProblem, celsius, parse_header, si_converter
 
 CATALYSTS_FILE = "catalysts.csv"
 TRIALS_FILE = "trials.csv"
@@ -462,7 +462,7 @@ def check_trials(raw: RawTable, known_catalysts: set[str]) -> Checked:
 
 def _celsius(row) -> str:
     kelvin = row["gas_temperature"] if pd.notna(row["gas_temperature"]) else DEFAULT_GAS_TEMPERATURE
-    return f"{kelvin - 273.15:g} °C"
+    return f"{celsius(kelvin):g} °C"
 
 
 def trace_layout(source: TraceSource) -> tuple[dict[str, str], float, list[Problem], list[str]]:

@@ -20,8 +20,9 @@ import pandas as pd
 from catalog.analysis.per_catalyst import standard_series
 from catalog.analysis.per_trial import trace_amounts
 from catalog.core import arrhenius, batch
+from catalog.core.stats import Z95
 from catalog.errors import CatalogError
-from catalog.units import from_si
+from catalog.units import celsius, from_si
 
 __all__ = [
     "MAX_ROWS",
@@ -45,14 +46,9 @@ CATEGORY_SCHEME = "tableau10"
 #: Sequential colours for temperature (viridis: ordered in lightness, so it also reads in greyscale).
 TEMPERATURE_SCHEME = "viridis"
 #: Coverage factor of the per-trial error bars: a 95 % normal interval of a single fitted rate.
-_Z95 = 1.959963984540054
 
 _WIDTH = 420
 _HEIGHT = 300
-
-
-def _celsius(T):
-    return from_si(np.asarray(T, dtype=float), "degC")
 
 
 def _pick(frame: pd.DataFrame, ids: Iterable[str] | None) -> pd.DataFrame:
@@ -107,9 +103,9 @@ def arrhenius_frames(trials: pd.DataFrame, catalyst_ids: Iterable[str],
         main = standard_series(group)
         with np.errstate(divide="ignore", invalid="ignore"):
             ln_tof = np.log(tof)
-            half = _Z95 * se / tof
+            half = Z95 * se / tof
         point_parts.append(pd.DataFrame({
-            "catalyst_id": cid, "trial_id": group.index.to_numpy(), "temperature_c": _celsius(T),
+            "catalyst_id": cid, "trial_id": group.index.to_numpy(), "temperature_c": celsius(T),
             "inv_t": 1000.0 / T, "ln_tof": ln_tof, "ln_tof_low": ln_tof - half, "ln_tof_high": ln_tof + half,
             "in_fit": main}))
         try:
@@ -119,7 +115,7 @@ def arrhenius_frames(trials: pd.DataFrame, catalyst_ids: Iterable[str],
         grid = np.linspace(fit.t_min, fit.t_max, n_grid)
         pred = arrhenius.predict(fit, grid)
         line_parts.append(pd.DataFrame({
-            "catalyst_id": cid, "temperature_c": _celsius(grid), "inv_t": 1000.0 / grid,
+            "catalyst_id": cid, "temperature_c": celsius(grid), "inv_t": 1000.0 / grid,
             "ln_tof": np.log(pred.value), "ln_low": np.log(pred.low), "ln_high": np.log(pred.high)}))
     points = pd.concat(point_parts, ignore_index=True) if point_parts else pd.DataFrame(
         columns=["catalyst_id", "trial_id", "temperature_c", "inv_t", "ln_tof", "ln_tof_low", "ln_tof_high", "in_fit"])
@@ -236,14 +232,14 @@ def trace_frames(trials: pd.DataFrame, points: pd.DataFrame, trial_ids: Iterable
     info = table.loc[uniques]
     observed = pd.DataFrame({
         "trial_id": np.asarray(uniques)[codes], "catalyst_id": info["catalyst_id"].to_numpy()[codes],
-        "temperature_c": _celsius(info["temperature"].to_numpy(float))[codes], "time_min": from_si(t, "min"),
+        "temperature_c": celsius(info["temperature"].to_numpy(float))[codes], "time_min": from_si(t, "min"),
         "progress": observed_y, "residual": observed_y - fitted_y})[keep]
     grid_codes = np.repeat(np.arange(len(uniques)), CURVE_POINTS)
     t_end = sel.groupby(codes)["t"].max().reindex(range(len(uniques))).to_numpy(float)
     grid_t = (np.linspace(0.0, 1.0, CURVE_POINTS)[None, :] * t_end[:, None]).ravel()
     fitted = pd.DataFrame({
         "trial_id": np.asarray(uniques)[grid_codes], "catalyst_id": info["catalyst_id"].to_numpy()[grid_codes],
-        "temperature_c": _celsius(info["temperature"].to_numpy(float))[grid_codes],
+        "temperature_c": celsius(info["temperature"].to_numpy(float))[grid_codes],
         "time_min": from_si(grid_t, "min"), "progress": progress(batch.curve_values(fits, grid_codes, grid_t),
                                                                  grid_codes)})
     observed = observed[np.isfinite(observed["progress"].to_numpy(float))].reset_index(drop=True)
@@ -366,7 +362,7 @@ def tof_bar_chart(catalysts: pd.DataFrame, reference_temperature: float,
         "tof_low": rows["tof_ref_low"].to_numpy(float), "tof_high": rows["tof_ref_high"].to_numpy(float),
         "extrapolated": rows["tof_ref_extrapolated"].fillna(False).astype(bool).to_numpy()})
     frame = frame[np.isfinite(frame["tof"])].reset_index(drop=True)
-    t_ref = float(_celsius(reference_temperature))
+    t_ref = float(celsius(reference_temperature))
     return _interval_chart(frame, "tof", "tof_low", "tof_high", f"TOF at {t_ref:.1f} °C [1/s]", log=False,
                            title="TOF at the reference temperature (95 % interval)")
 
