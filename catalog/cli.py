@@ -254,7 +254,7 @@ def cmd_rank(args: argparse.Namespace) -> int:
 def _screen_columns(top: int) -> list[str]:
     """Columns printed on the terminal (the files carry every column)."""
     return ["rank", "catalyst_id", "tof [1/s]", "tof_low [1/s]", "tof_high [1/s]", "ea [kJ/mol]", "ea_low [kJ/mol]",
-            "ea_high [kJ/mol]", "enhancement", "rank_low", "rank_high", f"p_top{top}", "n_trials", "flags"]
+            "ea_high [kJ/mol]", "rate_enhancement", "rank_low", "rank_high", f"p_top{top}", "n_trials", "flags"]
 
 
 def cmd_analyse(args: argparse.Namespace) -> int:

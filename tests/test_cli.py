@@ -9,7 +9,7 @@ import pytest
 from catalog.cli import main
 
 REQUIRED = ["rank", "catalyst_id", "tof [1/s]", "tof_low [1/s]", "tof_high [1/s]", "ea [kJ/mol]", "ea_low [kJ/mol]",
-            "ea_high [kJ/mol]", "enhancement", "n_trials", "flags"]
+            "ea_high [kJ/mol]", "rate_enhancement", "n_trials", "flags"]
 
 
 def _rows(path):
