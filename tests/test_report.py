@@ -2,11 +2,11 @@
 
 from __future__ import annotations
 
-import html
 import json
 import re
 from html.parser import HTMLParser
 
+import markupsafe
 import numpy as np
 import pandas as pd
 import pytest
@@ -95,10 +95,17 @@ def test_report_is_offline(page):
     assert not re.search(r"<link[^>]+href=[\"']https?://", page)
 
 
+def _specs(page):
+    """Chart id → spec, read back from the JSON script elements as a browser's JSON.parse would."""
+    found = re.findall(r'<script type="application/json" id="(chart-\d+)-spec">(.*?)</script>', page, flags=re.S)
+    return {cid: json.loads(text) for cid, text in found}
+
+
 def test_one_copy_of_the_javascript_for_every_chart(page):
-    divs = re.findall(r'<div id="(chart-\d+)"></div>', page)
-    calls = re.findall(r'vegaEmbed\("#(chart-\d+)"', page)
-    assert len(divs) >= 4 and divs == calls
+    divs = re.findall(r'<div id="(chart-\d+)" data-spec="(chart-\d+)-spec"></div>', page)
+    assert len(divs) >= 4 and all(a == b for a, b in divs)
+    assert [a for a, _ in divs] == list(_specs(page))
+    assert page.count("vegaEmbed(div, spec, options)") == 1  # one loop draws every chart
     # The bundle defines Vega-Embed once; a second copy would double the file size.
     assert page.count("// vega-embed") <= 1
     assert len(page) < 2 * len(vl_convert.javascript_bundle(vl_version=report._vegalite_version()))
@@ -106,21 +113,49 @@ def test_one_copy_of_the_javascript_for_every_chart(page):
 
 def test_report_carries_caution_version_and_provenance(demo, page):
     db, res, (catalysts, trials, points) = demo
-    assert html.escape(CAUTION) in page
-    assert page.index(html.escape(CAUTION)) < page.index('id="ranking"')  # shown before any figure
+    caution = str(markupsafe.escape(CAUTION))
+    assert page.count(caution) == 2  # at the top and in the hazard section
+    assert page.index(caution) < page.index('id="ranking"')  # shown before any figure
     assert f"catalog {__version__}" in page
     assert res.data_stamp in page
     assert report.data_hash(catalysts, trials, points) in page
-    assert html.escape(str(db)) in page
+    assert str(markupsafe.escape(str(db))) in page
 
 
-def test_embedded_specs_compile(page):
-    specs = re.findall(r'vegaEmbed\("#chart-\d+", (.*?), \{"actions"', page)
-    assert specs
-    for text in specs:
-        svg = vl_convert.vegalite_to_svg(json.loads(text.replace("<\\/", "</")),
-                                         vl_version=report._vegalite_version())
+def _fields(spec):
+    """Every field name a Vega-Lite spec encodes."""
+    if isinstance(spec, dict):
+        for key, value in spec.items():
+            if key == "field" and isinstance(value, str):
+                yield value
+            else:
+                yield from _fields(value)
+    elif isinstance(spec, list):
+        for item in spec:
+            yield from _fields(item)
+
+
+def _data_marks(svg: str) -> int:
+    """Drawn data marks in a Vega SVG: shapes inside the groups Vega labels 'role-mark' (axes and legends have
+    other roles)."""
+    count = 0
+    for chunk in svg.split('<g class="mark-')[1:]:
+        kind, _, rest = chunk.partition('"')
+        if " role-mark" in kind:
+            body = rest.split("</g>", 1)[0]
+            count += len(re.findall(r'd="M[^"]+"|<text|<circle', body))
+    return count
+
+
+def test_embedded_specs_compile_and_draw_marks(page):
+    specs = _specs(page)
+    assert len(specs) >= 4
+    for cid, spec in specs.items():
+        # Vega-Lite reads '[' and '.' in a field name as nested access, and the chart then draws nothing.
+        assert all(re.fullmatch(r"[A-Za-z0-9_]+", f) for f in _fields(spec)), (cid, sorted(set(_fields(spec))))
+        svg = vl_convert.vegalite_to_svg(spec, vl_version=report._vegalite_version())
         assert svg.startswith("<svg")
+        assert _data_marks(svg) > 0, cid
 
 
 def test_report_with_a_given_ranking_shows_its_shortlist(demo, tmp_path):
@@ -205,3 +240,61 @@ def test_catalyst_charts_leave_out_missing_values(demo):
         charts.tof_bar_chart(cats, 308.15, ["no-such-catalyst"])
     with pytest.raises(CatalogError, match="no catalyst figure"):
         charts.pareto_chart(cats, "ea", "nonsense", front=[])
+
+
+# ------------------------------------------------------------------------------------------------- hostile ids
+
+HOSTILE_IDS = ["<!--", "</script><script>alert(1)</script>", "<img src=x onerror=alert(1)>", "a&b\u2028c\u2029"]
+
+
+def _renamed(res, points, mapping):
+    """The demo results with catalyst ids replaced, consistently in every table."""
+    import dataclasses
+
+    trials = res.trials.assign(catalyst_id=res.trials["catalyst_id"].replace(mapping))
+    catalysts = res.catalysts.rename(index=mapping)
+    flags = res.flags.assign(record_id=res.flags["record_id"].replace(mapping))
+    return dataclasses.replace(res, trials=trials, catalysts=catalysts, flags=flags), points
+
+
+def test_hostile_catalyst_ids_cannot_change_the_page(demo):
+    _, res, (_, _, points) = demo
+    ranked_before = _hand_ranking(res.catalysts)
+    mapping = dict(zip(ranked_before.index[: len(HOSTILE_IDS)], HOSTILE_IDS, strict=True))
+    hostile, points = _renamed(res, points, mapping)
+    ranked = ranked_before.rename(index=mapping)
+    page = report.render_report(hostile, ranked, 3, points, "db<!--", "0" * 64)
+    clean = report.render_report(res, ranked_before, 3, points, "db", "0" * 64)
+    parser = _Page()
+    parser.feed(page)
+    parser.close()
+    assert parser.errors == []
+    clean_parser = _Page()
+    clean_parser.feed(clean)
+    # Same elements, same scripts: the ids changed no structure.
+    assert parser.ids == clean_parser.ids and len(parser.scripts) == len(clean_parser.scripts)
+    for text in HOSTILE_IDS[:3]:
+        assert text not in page
+    # The safety caution survives, twice, and every chart still has its spec with the ids as data.
+    assert page.count(str(markupsafe.escape(CAUTION))) == 2
+    specs = _specs(page)
+    assert len(specs) == len(_specs(clean))
+    drawn = {r.get("catalyst_id") for spec in specs.values() for rows in spec.get("datasets", {}).values()
+             for r in rows}
+    assert set(HOSTILE_IDS[:3]) <= drawn
+
+
+def test_script_json_escapes_what_could_end_a_script():
+    text = report.script_json({"id": "</script><!--&\u2028\u2029"})
+    for bad in ("<", ">", "&", "\u2028", "\u2029"):
+        assert bad not in text
+    assert json.loads(text) == {"id": "</script><!--&\u2028\u2029"}
+
+
+def test_report_is_replaced_whole(demo, tmp_path):
+    db, _, _ = demo
+    target = tmp_path / "report.html"
+    target.write_text("previous", encoding="utf-8")
+    report.write_report(db, target, Settings(), top_k=2)
+    assert target.read_text(encoding="utf-8").startswith("<!DOCTYPE html>")
+    assert [p.name for p in tmp_path.iterdir()] == ["report.html"]  # no temporary file left behind

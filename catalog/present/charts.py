@@ -22,6 +22,7 @@ from catalog.analysis.per_trial import trace_amounts
 from catalog.core import arrhenius, batch
 from catalog.core.stats import Z95
 from catalog.errors import CatalogError
+from catalog.present import labels
 from catalog.units import celsius, from_si
 
 __all__ = [
@@ -45,7 +46,10 @@ CURVE_POINTS = 60
 CATEGORY_SCHEME = "tableau10"
 #: Sequential colours for temperature (viridis: ordered in lightness, so it also reads in greyscale).
 TEMPERATURE_SCHEME = "viridis"
-#: Coverage factor of the per-trial error bars: a 95 % normal interval of a single fitted rate.
+#: Height of one catalyst's row in a bar chart, px: each catalyst gets its own row at any chart width.
+ROW_STEP = 24
+#: Longest catalyst label drawn before it is cut with an ellipsis, px.
+LABEL_LIMIT = 220
 
 _WIDTH = 420
 _HEIGHT = 300
@@ -144,7 +148,7 @@ def arrhenius_chart(results, catalyst_ids: Iterable[str]) -> alt.LayerChart:
     ids = list(catalyst_ids)
     points, lines = arrhenius_frames(results.trials, ids)
     colour = alt.Color("catalyst_id:N", title="catalyst", scale=alt.Scale(scheme=CATEGORY_SCHEME, domain=ids))
-    x = alt.X("inv_t:Q", title="1000 / T [1/K]", scale=alt.Scale(zero=False))
+    x = alt.X("inv_t:Q", title="1000 / T [K⁻¹]", scale=alt.Scale(zero=False))
     tips = [alt.Tooltip("catalyst_id:N", title="catalyst"), alt.Tooltip("trial_id:N", title="trial"),
             alt.Tooltip("temperature_c:Q", title="T [°C]", format=".1f"),
             alt.Tooltip("ln_tof:Q", title="ln TOF", format=".3f"), alt.Tooltip("in_fit:N", title="in fit")]
@@ -169,7 +173,7 @@ def _thin(codes: np.ndarray, per_trial: int) -> np.ndarray:
     keep = np.zeros(len(codes), dtype=bool)
     starts = np.flatnonzero(np.r_[True, codes[1:] != codes[:-1]])
     ends = np.r_[starts[1:], len(codes)]
-    for lo, hi in zip(starts, ends):
+    for lo, hi in zip(starts, ends, strict=True):
         n = hi - lo
         idx = np.unique(np.round(np.linspace(0, n - 1, min(n, per_trial))).astype(int)) if n else []
         keep[lo + np.asarray(idx, dtype=int)] = True
@@ -320,7 +324,7 @@ def _interval_chart(frame: pd.DataFrame, value: str, low: str, high: str, axis_t
     ``rule_at`` adds a dashed vertical reference line at that value.
     """
     order = frame["catalyst_id"].tolist()
-    y = alt.Y("catalyst_id:N", title=None, sort=order)
+    y = alt.Y("catalyst_id:N", title=None, sort=order, axis=alt.Axis(labelLimit=LABEL_LIMIT))
     scale = alt.Scale(type="log") if log else alt.Scale(zero=True)
     x = alt.X(f"{value}:Q", title=axis_title, scale=scale)
     tips = [alt.Tooltip("catalyst_id:N", title="catalyst"), alt.Tooltip(f"{value}:Q", format=".4g", title="value"),
@@ -338,7 +342,8 @@ def _interval_chart(frame: pd.DataFrame, value: str, low: str, high: str, axis_t
     if rule_at is not None:
         layers.append(alt.Chart(pd.DataFrame({value: [float(rule_at)]})).mark_rule(
             strokeDash=[4, 3], color="grey").encode(x=f"{value}:Q"))
-    return alt.layer(*layers).properties(width=_WIDTH, height=max(60, 22 * len(frame)), title=title)
+    # A step height gives every catalyst its own row whatever width the page gives the chart.
+    return alt.layer(*layers).properties(width=_WIDTH, height=alt.Step(ROW_STEP), title=title)
 
 
 def tof_bar_chart(catalysts: pd.DataFrame, reference_temperature: float,
@@ -363,13 +368,13 @@ def tof_bar_chart(catalysts: pd.DataFrame, reference_temperature: float,
         "extrapolated": rows["tof_ref_extrapolated"].fillna(False).astype(bool).to_numpy()})
     frame = frame[np.isfinite(frame["tof"])].reset_index(drop=True)
     t_ref = float(celsius(reference_temperature))
-    return _interval_chart(frame, "tof", "tof_low", "tof_high", f"TOF at {t_ref:.1f} °C [1/s]", log=False,
+    return _interval_chart(frame, "tof", "tof_low", "tof_high", f"TOF at {t_ref:.1f} °C [s⁻¹]", log=False,
                            title="TOF at the reference temperature (95 % interval)")
 
 
 def enhancement_chart(catalysts: pd.DataFrame, catalyst_ids: Iterable[str] | None = None,
                       threshold: float | None = None) -> alt.LayerChart:
-    """Enhancement over the blank at the reference temperature, log axis, with 95 % intervals.
+    """Rate enhancement over the uncatalysed blank at the reference temperature, log axis, with 95 % intervals.
 
     .. math:: E = \\frac{r_\\mathrm{blank}(T_\\mathrm{ref}) + \\mathrm{TOF}(T_\\mathrm{ref})\\,n_\\mathrm{sites}}
               {r_\\mathrm{blank}(T_\\mathrm{ref})}
@@ -390,18 +395,21 @@ def enhancement_chart(catalysts: pd.DataFrame, catalyst_ids: Iterable[str] | Non
         "low": rows["enhancement_ref_low"].to_numpy(float), "high": rows["enhancement_ref_high"].to_numpy(float),
         "extrapolated": rows["blank_extrapolated"].fillna(False).astype(bool).to_numpy()})
     frame = frame[np.isfinite(frame["enhancement"]) & (frame["enhancement"] > 0)].reset_index(drop=True)
-    return _interval_chart(frame, "enhancement", "low", "high", "enhancement over blank (log scale)", log=True,
-                           title="Enhancement over the blank at the reference temperature (95 % interval)",
+    return _interval_chart(frame, "enhancement", "low", "high", f"{labels.ENHANCEMENT_SHORT} (log scale)", log=True,
+                           title=f"{labels.ENHANCEMENT.capitalize()} at the reference temperature (95 % interval)",
                            rule_at=threshold)
 
 
 def pareto_chart(catalysts: pd.DataFrame, x_metric: str, y_metric: str, front: Iterable[str],
-                 x_title: str | None = None, y_title: str | None = None) -> alt.LayerChart:
+                 x_title: str | None = None, y_title: str | None = None, warnings: dict[str, str] | None = None,
+                 log_x: bool = False, log_y: bool = False) -> alt.LayerChart:
     """Two catalyst figures against each other, the Pareto set highlighted and joined in x order.
 
     The chart plots what it is given: ``front`` should be the set that is optimal for these two figures (for
-    example the ``pareto`` column of the ranking when it ranked on them). Values are plotted as stored (SI);
-    say the unit in the titles.
+    example :func:`catalog.analysis.ranking.pareto_front` of them). Values are plotted as given; say the unit in
+    the titles. A catalyst in ``warnings`` is drawn as a triangle, its label carries a warning sign and its
+    tooltip the warning, so a transport-limited catalyst never looks optimal without its flag
+    (:func:`catalog.present.tradeoff.transport_warnings`).
 
     Parameters
     ----------
@@ -413,24 +421,37 @@ def pareto_chart(catalysts: pd.DataFrame, x_metric: str, y_metric: str, front: I
         Catalyst ids on the Pareto set.
     x_title, y_title : str, optional
         Axis titles (default: the column names).
+    warnings : dict, optional
+        Catalyst id → warning text.
+    log_x, log_y : bool
+        Log axes (for positive figures spanning decades, such as TOF and price).
     """
     for name in (x_metric, y_metric):
         if name not in catalysts.columns:
             raise CatalogError(f"no catalyst figure called '{name}'")
     on_front = set(front)
-    frame = pd.DataFrame({"catalyst_id": catalysts.index.to_numpy(),
+    warnings = warnings or {}
+    frame = pd.DataFrame({"catalyst_id": catalysts.index.astype(str).to_numpy(),
                           "x": catalysts[x_metric].to_numpy(float), "y": catalysts[y_metric].to_numpy(float)})
-    frame = frame[np.isfinite(frame["x"]) & np.isfinite(frame["y"])].reset_index(drop=True)
+    keep = np.isfinite(frame["x"]) & np.isfinite(frame["y"])
+    keep &= (frame["x"] > 0 if log_x else True) & (frame["y"] > 0 if log_y else True)
+    frame = frame[keep].reset_index(drop=True)
     frame["pareto"] = frame["catalyst_id"].isin(on_front)
-    x = alt.X("x:Q", title=x_title or x_metric, scale=alt.Scale(zero=False))
-    y = alt.Y("y:Q", title=y_title or y_metric, scale=alt.Scale(zero=False))
+    frame["warning"] = frame["catalyst_id"].map(warnings).fillna("")
+    frame["label"] = [f"{c} ⚠" if w else c for c, w in zip(frame["catalyst_id"], frame["warning"], strict=True)]
+    x_title, y_title = x_title or x_metric, y_title or y_metric
+    x = alt.X("x:Q", title=x_title, scale=alt.Scale(type="log") if log_x else alt.Scale(zero=False))
+    y = alt.Y("y:Q", title=y_title, scale=alt.Scale(type="log") if log_y else alt.Scale(zero=False))
     base = alt.Chart(frame)
-    dots = base.mark_point(size=70, strokeWidth=1.5, color="black").encode(
+    dots = base.mark_point(size=80, strokeWidth=1.5, color="black").encode(
         x=x, y=y, fill=alt.condition("datum.pareto", alt.value("black"), alt.value("white")),
-        tooltip=[alt.Tooltip("catalyst_id:N", title="catalyst"), alt.Tooltip("x:Q", title=x_title or x_metric,
-                                                                            format=".4g"),
-                 alt.Tooltip("y:Q", title=y_title or y_metric, format=".4g")])
-    labels = base.mark_text(align="left", dx=7, dy=-6, fontSize=10).encode(x=x, y=y, text="catalyst_id:N")
+        shape=alt.condition("datum.warning != ''", alt.value("triangle-up"), alt.value("circle")),
+        tooltip=[alt.Tooltip("catalyst_id:N", title="catalyst"), alt.Tooltip("x:Q", title=x_title, format=".3g"),
+                 alt.Tooltip("y:Q", title=y_title, format=".3g"), alt.Tooltip("pareto:N", title="Pareto set"),
+                 alt.Tooltip("warning:N", title="warning")])
+    labels_layer = base.mark_text(align="left", dx=7, dy=-6, fontSize=10).encode(x=x, y=y, text="label:N")
     path = alt.Chart(frame[frame["pareto"]].sort_values("x")).mark_line(color="black", strokeDash=[3, 2]).encode(
         x="x:Q", y="y:Q", order="x:Q")
-    return alt.layer(path, dots, labels).properties(width=_WIDTH, height=_HEIGHT, title="Trade-off (filled and joined: Pareto set)")
+    return alt.layer(path, dots, labels_layer).properties(
+        width=_WIDTH, height=_HEIGHT, title="Trade-off (filled and joined: Pareto set; ⚠ triangle: transport warning)")
+

@@ -3,20 +3,24 @@
 The page carries its own copy of the Vega, Vega-Lite and Vega-Embed JavaScript (bundled by vl-convert), once, in the
 head; every chart is an inline Vega-Lite spec drawn by that one copy. Nothing is fetched from the network, so the
 file can be mailed, archived or opened on an instrument PC without internet access.
+
+The page is the jinja2 template ``templates/report.html.j2`` with autoescape on, so every id, note and message is
+text. Chart specs travel as JSON in ``<script type="application/json">`` elements with ``<``, ``>``, ``&`` and the
+U+2028/U+2029 separators escaped (:func:`script_json`): no catalyst id, however hostile (``</script>``, ``<!--``),
+can end the element or change the page around it.
 """
 
 from __future__ import annotations
 
 import hashlib
-import html
 import itertools
 import json
 import os
-from dataclasses import asdict
 from datetime import datetime, timezone
 from pathlib import Path
 
 import altair as alt
+import jinja2
 import numpy as np
 import pandas as pd
 import vl_convert
@@ -27,10 +31,16 @@ from catalog.analysis.results import Results, get_results
 from catalog.analysis.settings import Settings
 from catalog.core.hazard import CAUTION
 from catalog.errors import CatalogError
-from catalog.present import charts, exports
+from catalog.present import charts, exports, labels, tradeoff
+from catalog.present.files import atomic_write
+from catalog.present.numbers import MISSING, format_interval, format_number, unit_label
 from catalog.units import from_si
 
-__all__ = ["data_hash", "render_report", "write_report"]
+__all__ = ["data_hash", "render_report", "script_json", "write_report"]
+
+# Templates ship as package data (pyproject [tool.setuptools.package-data]); PackageLoader finds them in a wheel.
+_TEMPLATES = jinja2.Environment(loader=jinja2.PackageLoader("catalog.present", "templates"),
+                                autoescape=True, undefined=jinja2.StrictUndefined, keep_trailing_newline=True)
 
 #: Flag messages listed per code before the rest are summarised as a count.
 MAX_MESSAGES = 40
@@ -51,6 +61,8 @@ th { background: #f3f3f3; }
 .meta td:first-child { font-weight: bold; }
 .chart { margin: 1rem 0 2rem; }
 .small { font-size: 0.85rem; color: #555; }
+.code { font-size: 0.75rem; color: #666; }
+tr.shortlisted td { background: #eef6ee; }
 """
 
 _METHODS = (
@@ -75,14 +87,19 @@ _METHODS = (
      "fit of ln(TOF/T) gives ΔH‡ and ΔS‡ the same way. TOF at the reference temperature is read off the fitted "
      "line with the confidence interval of the line; it is marked as extrapolated outside the measured range."),
     ("Blank model",
-     "The initial rates of the uncatalysed (blank) trials are fitted with their own Arrhenius line. The "
-     "enhancement of a catalyst is its rate over the blank rate at the same temperature, with the uncertainty of "
-     "both."),
+     "The initial rates of the uncatalysed (blank) trials are fitted with their own Arrhenius line. The rate "
+     "enhancement over the uncatalysed blank is a catalyst's rate over the blank rate at the same temperature, "
+     "with the uncertainty of both."),
     ("Ranking",
      "Catalysts are ranked on the chosen figure at the reference temperature. Monte Carlo draws from each "
      "catalyst's interval give a rank interval and the probability of landing in the top k; flagged catalysts "
-     "can be excluded or demoted. The Pareto set holds the catalysts no other catalyst beats on every figure "
-     "compared."),
+     "can be excluded or demoted. The trade-off plot sets activity against price (or, without prices, stability "
+     "or rate enhancement); its Pareto set holds the catalysts no other catalyst beats on both. A low apparent "
+     "Ea is not a merit: a transport-limited rate shows one, so such catalysts are marked on the plot."),
+    ("Numbers",
+     "Each value is rounded with its 95 % interval to two significant digits of the shorter half-width, as "
+     "JCGM 100:2008 (GUM) 7.2.6 recommends; figures without an interval keep three significant digits on the "
+     "page and four in the exported files."),
 )
 
 
@@ -116,13 +133,18 @@ def data_hash(catalysts: pd.DataFrame, trials: pd.DataFrame, points: pd.DataFram
     return digest.hexdigest()
 
 
-def _e(text) -> str:
-    return html.escape(str(text))
+_SCRIPT_ESCAPES = {"<": "\\u003c", ">": "\\u003e", "&": "\\u0026", "\u2028": "\\u2028", "\u2029": "\\u2029"}
 
 
-def _table(frame: pd.DataFrame) -> str:
-    """An HTML table with compact numbers and empty cells for missing values (pandas escapes the text)."""
-    return frame.to_html(index=False, na_rep="", border=0, float_format=lambda v: f"{v:.4g}")
+def script_json(value) -> str:
+    """JSON text that is safe inside an HTML ``<script>`` element.
+
+    ``<``, ``>`` and ``&`` become ``\\u003c``, ``\\u003e``, ``\\u0026`` (so neither ``</script>`` nor ``<!--``
+    can appear), and U+2028/U+2029 become escapes (older JavaScript parsers end a line there). JSON.parse reads the
+    escapes back as the same characters, so the data are unchanged.
+    """
+    text = json.dumps(value, ensure_ascii=False, allow_nan=False)
+    return "".join(_SCRIPT_ESCAPES.get(ch, ch) for ch in text)
 
 
 def _vegalite_version() -> str:
@@ -131,43 +153,56 @@ def _vegalite_version() -> str:
     return f"{major}.{minor}"
 
 
-def _chart_block(chart, index: int, caption: str) -> str:
-    """A placeholder div, its caption and the script that draws the spec into it with the page's Vega-Embed."""
-    spec = json.dumps(chart.to_dict()).replace("</", "<\\/")
-    div = f"chart-{index}"
-    return (f'<figure class="chart"><div id="{div}"></div><figcaption class="small">{_e(caption)}</figcaption>'
-            f'</figure>\n<script type="text/javascript">vegaEmbed("#{div}", {spec}, '
-            f"{json.dumps(_EMBED_OPTIONS)}).catch(console.error);</script>")
+def _text(value) -> str:
+    """A table cell: missing values empty, floats as stored (already rounded by the shortlist), text as is."""
+    if value is None or (not isinstance(value, str) and pd.isna(value)):
+        return ""
+    if isinstance(value, float | np.floating):
+        return f"{float(value):.10g}"
+    return str(value)
 
 
-def _settings_table(settings: Settings) -> pd.DataFrame:
-    # Text from the start: a frame of mixed ints and floats would print the ints as floats.
-    rows = [(name, str(value)) for name, value in asdict(settings).items()]
-    rows.insert(1, ("reference_temperature [degC]", f"{float(from_si(settings.reference_temperature, 'degC')):.2f}"))
-    return pd.DataFrame(rows, columns=["setting", "value"])
+def _frame_rows(frame: pd.DataFrame) -> dict:
+    return {"columns": [str(c) for c in frame.columns],
+            "rows": [[_text(v) for v in row] for row in frame.itertuples(index=False, name=None)]}
 
 
-def _flag_section(flags: pd.DataFrame) -> str:
+def _ranking_rows(table: pd.DataFrame, top_k: int, t_ref_c: float) -> dict:
+    """The first table of the report: figures with their intervals, flags by title with the code beside."""
+    columns = ["rank", "catalyst", f"TOF at {t_ref_c:.1f} °C [{unit_label('1/s')}] (95 %)",
+               "apparent Ea [kJ/mol] (95 %)", f"{labels.ENHANCEMENT_SHORT} (95 %)", "trials", "flags"]
+    rows = []
+    for row in table.to_dict("records"):
+        rank = row["rank"]
+        rows.append({
+            "shortlisted": not pd.isna(rank) and rank <= top_k,
+            "cells": ["" if pd.isna(rank) else str(int(rank)), row["catalyst_id"],
+                      format_interval(row["tof [1/s]"], row["tof_low [1/s]"], row["tof_high [1/s]"]),
+                      format_interval(row["ea [kJ/mol]"], row["ea_low [kJ/mol]"], row["ea_high [kJ/mol]"]),
+                      format_interval(row["rate_enhancement"], row["rate_enhancement_low"],
+                                      row["rate_enhancement_high"]),
+                      "" if pd.isna(row["n_trials"]) else str(int(row["n_trials"]))],
+            "flags": [(labels.flag_title(c), c) for c in str(row["flags"] or "").split(";") if c]})
+    return {"columns": columns, "rows": rows}
+
+
+def _flag_groups(flags: pd.DataFrame) -> list[dict]:
     """Each code present: its title and explanation, then the records it was raised for with their messages."""
-    if flags.empty:
-        return "<p>No flags were raised.</p>"
-    parts = []
+    groups = []
     for code, group in flags.groupby("code", sort=True):
         title, explanation = diagnostics.FLAG_CODES.get(code, (code, ""))
         # The caution is shown in full at the top and in the hazard section; repeating it in every message
         # would bury the messages.
-        explanation = explanation.replace(CAUTION, "(See the safety caution.)")
-        items = [f"<li>{_e(row.scope)} <code>{_e(row.record_id)}</code> ({_e(row.severity)}): "
-                 f"{_e(str(row.message).replace(CAUTION, '(See the safety caution.)'))}</li>"
+        items = [{"scope": row.scope, "record": row.record_id, "severity": row.severity,
+                  "message": str(row.message).replace(CAUTION, "(See the safety caution.)")}
                  for row in group.head(MAX_MESSAGES).itertuples(index=False)]
-        if len(group) > MAX_MESSAGES:
-            items.append(f"<li>… and {len(group) - MAX_MESSAGES} more</li>")
-        parts.append(f"<h3><code>{_e(code)}</code>: {_e(title)} ({len(group)})</h3><p>{_e(explanation)}</p>"
-                     f"<ul>{''.join(items)}</ul>")
-    return "\n".join(parts)
+        groups.append({"title": title, "code": code, "count": len(group), "records": items,
+                       "explanation": explanation.replace(CAUTION, "(See the safety caution.)"),
+                       "more": max(len(group) - MAX_MESSAGES, 0)})
+    return groups
 
 
-def _hazard_table(results: Results, catalyst_ids: list[str]) -> pd.DataFrame:
+def _hazard_rows(results: Results, catalyst_ids: list[str]) -> dict:
     """Largest screening estimates over each shortlisted catalyst's trials; empty cells where none was possible."""
     rows = []
     for cid in catalyst_ids:
@@ -175,34 +210,41 @@ def _hazard_table(results: Results, catalyst_ids: list[str]) -> pd.DataFrame:
         rise = group["adiabatic_rise"].to_numpy(float)
         burst = group["pressure_rise_max"].to_numpy(float)
         bands = sorted(set(group["hazard_band"].dropna().astype(str)))
-        rows.append({
-            "catalyst_id": cid,
-            "max adiabatic rise [K]": np.nanmax(rise) if np.isfinite(rise).any() else np.nan,
-            "bands": ", ".join(bands),
-            "max closed-vessel pressure rise [kPa]": from_si(np.nanmax(burst), "kPa") if np.isfinite(burst).any()
-            else np.nan})
-    return pd.DataFrame(rows, columns=["catalyst_id", "max adiabatic rise [K]", "bands",
-                                       "max closed-vessel pressure rise [kPa]"])
+        rows.append([cid, format_number(np.nanmax(rise)) if np.isfinite(rise).any() else "", ", ".join(bands),
+                     format_number(from_si(np.nanmax(burst), "kPa")) if np.isfinite(burst).any() else ""])
+    return {"columns": ["catalyst", "largest adiabatic temperature rise [K]", "severity bands",
+                        "largest closed-vessel pressure rise [kPa]"], "rows": rows}
 
 
-def _pareto_figure(catalysts: pd.DataFrame, ranked: pd.DataFrame, metric: str):
-    """The ranking's default trade-off, the metric against Ea, with its Pareto set; None for a weighted score.
+def _figure_values(catalysts: pd.DataFrame, key: str) -> np.ndarray:
+    """A ranking figure per catalyst in its display unit (labels.FIGURES); price figures stay in the currency."""
+    values = ranking.metric_values(catalysts, key)["value"].to_numpy(float)
+    unit = labels.FIGURES[key][2]
+    return values if unit is None or "money" in unit else from_si(values, unit)
 
-    Uses the ranking's ``pareto`` column only when it refers to these two figures (the default of
-    ``ranking.rank``), so the marked set is the one optimal on the plotted axes.
-    """
-    if metric == "score":
-        return None
-    other = "tof" if metric == "ea" else metric
-    info = ranking.METRICS[other]
-    frame = catalysts.assign(ea_kj=from_si(catalysts["ea"].to_numpy(float), "kJ/mol"))
-    front = ranked.index[ranked["pareto"].astype(bool)]
-    return charts.pareto_chart(frame, "ea_kj", info.column, front, x_title="Ea [kJ/mol]",
-                               y_title=f"{info.title} [{info.unit}]")
+
+def _trade_off_figure(catalysts: pd.DataFrame, metric: str, currency: str | None):
+    """Activity against its cost (price, else stability, else rate enhancement), with the Pareto set of those two
+    figures and every transport-flagged catalyst marked; None when fewer than two catalysts have both."""
+    activity, counterpart = tradeoff.trade_off_axes(catalysts, metric)
+    frame = pd.DataFrame({"activity": _figure_values(catalysts, activity),
+                          "counterpart": _figure_values(catalysts, counterpart)}, index=catalysts.index)
+    if (np.isfinite(frame["activity"]) & np.isfinite(frame["counterpart"])).sum() < 2:
+        return None, ""
+    front = ranking.pareto_front(catalysts, activity, counterpart)
+    chart = charts.pareto_chart(frame, "counterpart", "activity", front.index[front.to_numpy(bool)],
+                                x_title=labels.figure_name(counterpart, short=True, currency=currency),
+                                y_title=labels.figure_name(activity, short=True, currency=currency),
+                                warnings=tradeoff.transport_warnings(catalysts), log_x=True, log_y=True)
+    words = (f"{labels.FIGURES[activity][0]} against {labels.FIGURES[counterpart][0]}; the Pareto set (filled, "
+             "joined) is the catalysts no other catalyst beats on both. Triangles marked ⚠ carry a transport "
+             "warning: their rate may measure mass transfer, not the catalyst (hover for the flag).")
+    return chart, words
 
 
 def render_report(results: Results, ranked: pd.DataFrame, top_k: int, points: pd.DataFrame, db_label: str,
-                  content_hash: str, metric: str = "tof", created: datetime | None = None) -> str:
+                  content_hash: str, metric: str = "tof", created: datetime | None = None,
+                  currency: str | None = None) -> str:
     """The report page as one HTML string (pure: everything it shows is passed in).
 
     Parameters
@@ -219,9 +261,11 @@ def render_report(results: Results, ranked: pd.DataFrame, top_k: int, points: pd
     content_hash : str
         :func:`data_hash` of the campaign data.
     metric : str
-        Ranking metric, shown with the table.
+        Ranking metric, named in plain words above the table.
     created : datetime, optional
         Time stamp printed on the page (now, UTC, when None).
+    currency : str, optional
+        Shown for prices (e.g. 'EUR').
 
     Returns
     -------
@@ -229,15 +273,15 @@ def render_report(results: Results, ranked: pd.DataFrame, top_k: int, points: pd
     """
     created = created or datetime.now(timezone.utc)
     settings = results.settings
-    table = exports.shortlist_table(ranked, results, top_k, metric=metric)
-    ranked_ids = [cid for cid, r in zip(ranked.index, ranked["rank"]) if np.isfinite(r)]
-    shortlist = [cid for cid, r in zip(ranked.index, ranked["rank"]) if np.isfinite(r) and r <= top_k]
+    table = exports.shortlist_table(ranked, results, top_k, metric=metric, currency=currency)
+    rank_of = ranked["rank"].to_numpy(float)
+    ranked_ids = [cid for cid, r in zip(ranked.index, rank_of, strict=True) if np.isfinite(r)]
+    shortlist = [cid for cid, r in zip(ranked.index, rank_of, strict=True) if np.isfinite(r) and r <= top_k]
     t_ref_c = float(from_si(settings.reference_temperature, "degC"))
-
     numbers = itertools.count()
 
     def chart(chart_obj, caption):
-        return _chart_block(chart_obj, next(numbers), caption)
+        return {"id": f"chart-{next(numbers)}", "caption": caption, "spec": script_json(chart_obj.to_dict())}
 
     figures = []
     if ranked_ids:
@@ -249,16 +293,15 @@ def render_report(results: Results, ranked: pd.DataFrame, top_k: int, points: pd
                              "Arrhenius plots of the shortlisted catalysts: filled points are in the fit, open "
                              "points are trials kept out of it; bars are 95 % intervals of single trials, bands "
                              "the 95 % confidence interval of the fitted line."))
-        pareto = _pareto_figure(results.catalysts, ranked, metric)
-        if pareto is not None:
-            figures.append(chart(pareto, "Activity against temperature sensitivity; the Pareto set is the "
-                                         "catalysts no other catalyst beats on both."))
+        trade_off, words = _trade_off_figure(results.catalysts, metric, currency)
+        if trade_off is not None:
+            figures.append(chart(trade_off, words))
         enhancement_ids = [c for c in ranked_ids if np.isfinite(results.catalysts.loc[c, "enhancement_ref"])]
         if enhancement_ids:
             figures.append(chart(charts.enhancement_chart(results.catalysts, enhancement_ids,
                                                           threshold=settings.min_enhancement),
-                                 "Enhancement over the blank at the reference temperature; dashed line: the "
-                                 "minimum the diagnostics ask for."))
+                                 f"{labels.ENHANCEMENT.capitalize()} at the reference temperature; dashed line: "
+                                 "the smallest the diagnostics accept without a flag."))
     traces = []
     for cid in shortlist:
         trial_ids = list(results.trials.index[results.trials["catalyst_id"] == cid])[:charts.MAX_TRACES]
@@ -267,75 +310,41 @@ def render_report(results: Results, ranked: pd.DataFrame, top_k: int, points: pd
         traces.append(chart(both, f"{cid}: readings (thinned for display) with the fitted rate law of each trial, "
                                   "and the residuals of those fits."))
 
-    meta = pd.DataFrame([
-        ("created", created.strftime("%Y-%m-%d %H:%M UTC")),
-        ("software", f"catalog {__version__}"),
-        ("database", db_label),
-        ("data stamp", results.data_stamp),
-        ("data SHA-256", content_hash),
-        ("analysis run", results.run_key),
-        ("catalysts / trials analysed", f"{len(results.catalysts)} / {len(results.trials)}"),
-    ], columns=["item", "value"])
-    first = table[list(exports.REQUIRED_COLUMNS)]
+    meta = [("created", created.strftime("%Y-%m-%d %H:%M UTC")), ("software", f"catalog {__version__}"),
+            ("database", db_label), ("data fingerprint (ids and counts)", results.data_stamp),
+            ("data SHA-256 (every value)", content_hash), ("analysis run key", results.run_key),
+            ("catalysts / trials analysed", f"{len(results.catalysts)} / {len(results.trials)}")]
     # Every catalyst flag (their codes appear in the ranking table) and the trial flags of the shortlist.
     shortlist_trials = set(results.trials.index[results.trials["catalyst_id"].isin(shortlist)])
     flags = results.flags
     relevant = flags[(flags["scope"] == "catalyst") | flags["record_id"].isin(shortlist_trials)]
     blank = results.blank
-    blank_text = ("No blank trials with two or more temperatures: no enhancement figures." if not blank else
-                  f"Blank model: Ea = {from_si(blank['ea'], 'kJ/mol'):.1f} kJ/mol "
-                  f"(95 % {from_si(blank['ea_low'], 'kJ/mol'):.1f}–{from_si(blank['ea_high'], 'kJ/mol'):.1f}) "
-                  f"from {blank['n']} trials between {from_si(blank['t_min'], 'degC'):.1f} and "
-                  f"{from_si(blank['t_max'], 'degC'):.1f} °C.")
-    caution = f'<div class="caution" role="note"><strong>Safety caution.</strong> {_e(CAUTION)}</div>'
-    methods = "".join(f"<h3>{_e(h)}</h3><p>{_e(p)}</p>" for h, p in _METHODS)
-    bundle = vl_convert.javascript_bundle(vl_version=_vegalite_version())
-
-    return f"""<!DOCTYPE html>
-<html lang="en">
-<head>
-<meta charset="utf-8">
-<title>Catalyst screening report</title>
-<style>{_STYLE}</style>
-<script type="text/javascript">
-{bundle}
-</script>
-</head>
-<body>
-<h1>Catalyst screening report</h1>
-<p class="small">Generated {_e(created.strftime("%Y-%m-%d"))} by catalog {_e(__version__)}.</p>
-{caution}
-<section id="provenance"><h2>Provenance</h2><div class="meta">{_table(meta)}</div></section>
-<section id="settings"><h2>Settings</h2>{_table(_settings_table(settings))}</section>
-<section id="ranking"><h2>Ranking</h2>
-<p>Ranked on <code>{_e(metric)}</code> at {t_ref_c:.1f} °C; intervals are 95 %; the shortlist is the top {top_k}.
-Empty cells are figures that could not be computed from the data.</p>
-<div class="wide">{_table(first)}</div>
-<details><summary>All columns</summary><div class="wide">{_table(table)}</div></details>
-<p>{_e(blank_text)}</p>
-{''.join(figures)}
-</section>
-<section id="traces"><h2>Traces of the shortlisted catalysts</h2>
-{''.join(traces) or '<p>No catalyst has a rank.</p>'}
-</section>
-<section id="hazards"><h2>Hazard screening</h2>
-{caution}
-<div class="wide">{_table(_hazard_table(results, shortlist))}</div>
-</section>
-<section id="flags"><h2>Flags</h2>
-<p>Flags are warnings; they never change a figure. Listed: every catalyst flag and the trial flags of the
-shortlisted catalysts.</p>
-{_flag_section(relevant)}
-</section>
-<section id="methods"><h2>Methods</h2>{methods}</section>
-</body>
-</html>
-"""
+    blank_ea = [from_si(blank[k], "kJ/mol") for k in ("ea", "ea_low", "ea_high")] if blank else []
+    blank_text = (f"No blank trials at two or more temperatures: no {labels.ENHANCEMENT}." if not blank else
+                  f"Blank model: Ea = {format_interval(*blank_ea, 'kJ/mol')} (95 %) from {blank['n']} trials "
+                  f"between {format_number(from_si(blank['t_min'], 'degC'))} and "
+                  f"{format_number(from_si(blank['t_max'], 'degC'), 'degC')}.")
+    ranking_intro = (f"Ranked on {labels.figure_name(metric, currency=currency)} at {t_ref_c:.1f} °C; intervals "
+                     f"are 95 %; the shortlist (shaded) is the top {top_k}. {MISSING} or an empty cell is a figure "
+                     "that could not be computed from the data. Flags are shown by title; the small code beside "
+                     "each is what --exclude and --demote take.")
+    template = _TEMPLATES.get_template("report.html.j2")
+    return template.render(
+        style=_STYLE, bundle=vl_convert.javascript_bundle(vl_version=_vegalite_version()),
+        created_date=created.strftime("%Y-%m-%d"), version=__version__, caution=CAUTION, meta=meta,
+        settings=labels.settings_rows(settings), ranking_intro=ranking_intro,
+        ranking=_ranking_rows(table, top_k, t_ref_c), full=_frame_rows(table), blank_text=blank_text,
+        figures=figures, traces=traces, hazards=_hazard_rows(results, shortlist),
+        flag_groups=_flag_groups(relevant), methods=_METHODS, embed_options=script_json(_EMBED_OPTIONS))
 
 
 def write_report(db: str | os.PathLike | None, path: str | os.PathLike, settings: Settings,
-                 ranked: pd.DataFrame | None = None, top_k: int = 3, metric: str = "tof") -> Path:
+                 ranked: pd.DataFrame | None = None, top_k: int = 3, metric: str = "tof",
+                 currency: str | None = None) -> Path:
     """Analyse (or read the cached analysis of) the campaign in ``db`` and write the report to ``path``.
+
+    The page is written to a temporary file in the same folder and renamed into place, so a full disk or a crash
+    never leaves a truncated report.
 
     Parameters
     ----------
@@ -351,6 +360,8 @@ def write_report(db: str | os.PathLike | None, path: str | os.PathLike, settings
         Shortlist size.
     metric : str
         Ranking metric when ``ranked`` is not given.
+    currency : str, optional
+        Shown for prices.
 
     Returns
     -------
@@ -369,9 +380,5 @@ def write_report(db: str | os.PathLike | None, path: str | os.PathLike, settings
         ranked = ranking.rank(results.catalysts, metric=metric, top_k=top_k)
     catalysts, trials, points = store.load_campaign(db)
     page = render_report(results, ranked, top_k, points, str(store.resolve_path(db)),
-                         data_hash(catalysts, trials, points), metric=metric)
-    try:
-        path.write_text(page, encoding="utf-8")
-    except OSError as exc:
-        raise CatalogError(f"could not write '{path}': {exc.strerror or exc}") from exc
-    return path
+                         data_hash(catalysts, trials, points), metric=metric, currency=currency)
+    return atomic_write(path, lambda temp: temp.write_text(page, encoding="utf-8"))
