@@ -9,17 +9,19 @@ from __future__ import annotations
 import argparse
 import os
 import sys
+import textwrap
 from pathlib import Path
 
 import pandas as pd
 
 from catalog import __version__, store
-from catalog.analysis import diagnostics, ranking, results
+from catalog.analysis import ranking, results
 from catalog.analysis.settings import Settings
 from catalog.core import hazard
 from catalog.errors import CatalogError
 from catalog.ingest.campaign import CATALYST_COLUMNS, TRIAL_COLUMNS, read_source
-from catalog.present import exports, report
+from catalog.present import exports, labels, report, screen
+from catalog.present.numbers import format_interval
 from catalog.units import UnitProblem, celsius, from_si, parse_temperature
 
 EXIT_USER_ERROR = 2
@@ -56,7 +58,7 @@ def cmd_trials(args: argparse.Namespace) -> int:
         "trial": trials["trial_id"],
         "catalyst": trials["catalyst_id"].fillna("(blank)"),
         "T [°C]": celsius(trials["temperature"]).round(2),
-        "measurement": trials["measurement"],
+        "measurement": trials["measurement"].map(labels.measurement_words),
         "mass [mg]": (trials["catalyst_mass"] * 1e6).round(3),
         "points": trials["n_points"],
         "span [min]": (trials["duration"] / 60).round(1),
@@ -135,11 +137,13 @@ def cmd_history(args: argparse.Namespace) -> int:
     if changes.empty:
         print("no changes recorded" + (f" for '{args.id}'" if args.id else ""))
         return 0
-    shown = changes.rename(columns={"change_id": "#", "table_name": "table", "record_id": "id", "column_name": "column",
-                                    "old_value": "was", "new_value": "now", "changed_by": "by", "changed_at": "when (UTC)"})
+    shown = changes.rename(columns={"change_id": "#", "table_name": "table", "record_id": "id",
+                                    "column_name": "column", "old_value": "was", "new_value": "now",
+                                    "changed_by": "by", "changed_at": "when (UTC)"})
     for column in ("was", "now"):
         shown[column] = [_shown(t, c, v) if v is not None else None
-                         for t, c, v in zip(changes["table_name"], changes["column_name"], shown[column])]
+                         for t, c, v in zip(changes["table_name"], changes["column_name"], shown[column],
+                                            strict=True)]
     # A purged record's JSON can be long; the full text stays in the database.
     for column in ("was", "now", "reason"):
         shown[column] = shown[column].fillna("").str.slice(0, 60)
@@ -228,33 +232,20 @@ def _ranked(args: argparse.Namespace):
 def cmd_rank(args: argparse.Namespace) -> int:
     found, ranked = _ranked(args)
     table = exports.shortlist_table(ranked, found, args.top, metric=args.metric)
-    columns = _screen_columns(args.top)
-    if args.metric not in ("tof", "ea"):  # those two are on screen anyway, in display units
-        # Show what the order is based on, next to the TOF every chemist reads first.
-        columns[2:2] = ["metric_value", "metric_low", "metric_high"]
-    shown = table[[c for c in columns if c in table.columns]].rename(
-        columns={"metric_value": args.metric, "metric_low": f"{args.metric}_low", "metric_high": f"{args.metric}_high"})
-    with pd.option_context("display.max_rows", None, "display.width", 220, "display.max_colwidth", 40):
-        print(shown.to_string(index=False, na_rep="", float_format=lambda v: f"{v:.4g}"))
-    print(f"\nreference temperature {celsius(found.settings.reference_temperature):.2f} °C; metric {args.metric}; "
-          f"95 % intervals; P(top {args.top}) from {args.draws} Monte Carlo draws (seed {args.seed})")
-    flagged = found.flags[found.flags["scope"] == "catalyst"]
-    if not flagged.empty:
-        print("flags (warnings, never hidden): " + "; ".join(
-            f"{code} = {diagnostics.FLAG_CODES.get(code, (code,))[0]}" for code in sorted(set(flagged["code"]))))
+    t_ref_c = float(celsius(found.settings.reference_temperature))
+    print(screen.rank_screen(table, args.top, args.metric, t_ref_c=t_ref_c))
+    print(textwrap.fill(f"\nranked on {labels.FIGURES[args.metric][0]} ({t_ref_c:.2f} °C); 95 % intervals; "
+                        f"P(top {args.top}) from {args.draws} Monte Carlo draws (seed {args.seed})",
+                        width=screen.SCREEN_WIDTH, replace_whitespace=False))
     if (found.trials.get("hazard_band", pd.Series(dtype=object)).isin(["medium", "high"]).any()
             or found.trials.get("pressure_rise_max", pd.Series(dtype=float)).notna().any()):
-        print(f"caution: {hazard.CAUTION}")
+        print(textwrap.fill(f"caution: {hazard.CAUTION}", width=screen.SCREEN_WIDTH, subsequent_indent="  "))
     if args.out:
         path = exports.write_table(table, args.out, results=found)
-        print(f"shortlist written to {path}")
+        print(f"shortlist with all {len(table.columns)} columns written to {path}")
+    else:
+        print(f"(the screen shows the main columns; --out FILE writes all {len(table.columns)})")
     return 0
-
-
-def _screen_columns(top: int) -> list[str]:
-    """Columns printed on the terminal (the files carry every column)."""
-    return ["rank", "catalyst_id", "tof [1/s]", "tof_low [1/s]", "tof_high [1/s]", "ea [kJ/mol]", "ea_low [kJ/mol]",
-            "ea_high [kJ/mol]", "rate_enhancement", "rank_low", "rank_high", f"p_top{top}", "n_trials", "flags"]
 
 
 def cmd_analyse(args: argparse.Namespace) -> int:
@@ -263,14 +254,15 @@ def cmd_analyse(args: argparse.Namespace) -> int:
     print(f"{len(found.trials)} trials and {len(found.catalysts)} catalysts analysed; results {state}")
     if found.blank:
         b = found.blank
-        print(f"blank (uncatalysed) model: Ea = {b['ea'] / 1e3:.1f} kJ/mol "
-              f"[{b['ea_low'] / 1e3:.1f}, {b['ea_high'] / 1e3:.1f}] from {b['n']} trials, "
-              f"{celsius(b['t_min']):.1f}-{celsius(b['t_max']):.1f} °C")
+        ea = [from_si(b[k], "kJ/mol") for k in ("ea", "ea_low", "ea_high")]
+        print(f"blank (uncatalysed) model: Ea = {format_interval(*ea, 'kJ/mol')} (95 %) from {b['n']} trials, "
+              f"{celsius(b['t_min']):.1f}–{celsius(b['t_max']):.1f} °C")
     else:
-        print("no blank model: enhancement over the blank and blank-corrected TOF need uncatalysed trials at two or more temperatures")
+        print(f"no blank model: the {labels.ENHANCEMENT} and blank-corrected TOF need uncatalysed trials at two or "
+              "more temperatures")
     counts = found.flags.groupby(["scope", "code"]).size()
     for (scope, code), n in counts.items():
-        print(f"  {scope} flag {code}: {n}")
+        print(f"  {n} {scope} flag(s): {labels.flag_title(code)} ({code})")
     return 0
 
 
@@ -377,7 +369,7 @@ def main(argv: list[str] | None = None) -> int:
     try:
         return args.func(args)
     except CatalogError as exc:
-        print(f"error: {exc}", file=sys.stderr)
+        print(f"error: {screen.condense(str(exc))}", file=sys.stderr)
         return EXIT_USER_ERROR
     except BrokenPipeError:
         # The reader of our output went away (e.g. `| head`): not an error; keep Python from complaining at exit.

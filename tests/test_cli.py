@@ -66,3 +66,46 @@ def test_missing_database_is_explained(tmp_path, capsys):
     assert main(["rank", "--db", str(missing), "--quiet"]) == 2
     assert "no database here yet" in capsys.readouterr().err
     assert not missing.exists()
+
+
+def test_rank_table_fits_a_100_column_terminal(demo_db, capsys):
+    assert main(["rank", "--db", str(demo_db), "--quiet"]) == 0
+    out = capsys.readouterr().out
+    assert max(len(line) for line in out.splitlines()) <= 100
+    # Figures with their intervals rounded together, flags by title with the code beside.
+    assert "rate enhancement" in out and "[s⁻¹]" in out
+    assert "Measured at one temperature only (single-temperature)" in out
+
+
+def test_rank_on_another_figure_shows_it_in_display_units(demo_db, capsys):
+    assert main(["rank", "--db", str(demo_db), "--metric", "rate_per_mass", "--quiet"]) == 0
+    out = capsys.readouterr().out
+    assert "rate per mass [mmol g⁻¹ h⁻¹]" in out
+    assert max(len(line) for line in out.splitlines()) <= 100
+
+
+def test_trials_show_measurement_kinds_in_plain_words(demo_db, capsys):
+    assert main(["trials", "--db", str(demo_db)]) == 0
+    out = capsys.readouterr().out
+    assert "gas volume" in out and "gas_volume" not in out
+
+
+def test_a_refused_header_does_not_cascade_and_repeats_collapse(tmp_path, capsys):
+    from catalog.datasets.synth import demo_campaign, write_campaign
+
+    folder = tmp_path / "campaign"
+    write_campaign(demo_campaign(), folder)
+    trials = folder / "trials.csv"
+    lines = trials.read_text(encoding="utf-8").splitlines()
+    header = lines[0].replace("catalyst_mass [mg]", "catalyst_mass [mL]")
+    body = [line.replace(",gas_volume,", ",gasvolume,") for line in lines[1:]]
+    trials.write_text("\n".join([header, *body]) + "\n", encoding="utf-8")
+    db = tmp_path / "x.duckdb"
+    assert main(["import", str(folder), "--db", str(db), "--quiet"]) == 2
+    err = capsys.readouterr().err
+    assert "Traceback" not in err and not db.exists()
+    assert "follow-on problem(s) in rows of this column left out" in err
+    assert "needs the catalyst mass" not in err
+    assert "more like this" in err
+    assert err.count("is not one of") <= 3
+    assert len(err.splitlines()) < 12
