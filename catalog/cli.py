@@ -231,9 +231,9 @@ def _ranked(args: argparse.Namespace):
 
 def cmd_rank(args: argparse.Namespace) -> int:
     found, ranked = _ranked(args)
-    table = exports.shortlist_table(ranked, found, args.top, metric=args.metric)
+    table = exports.shortlist_table(ranked, found, args.top, metric=args.metric, currency=args.currency)
     t_ref_c = float(celsius(found.settings.reference_temperature))
-    print(screen.rank_screen(table, args.top, args.metric, t_ref_c=t_ref_c))
+    print(screen.rank_screen(table, args.top, args.metric, t_ref_c=t_ref_c, currency=args.currency))
     print(textwrap.fill(f"\nranked on {labels.FIGURES[args.metric][0]} ({t_ref_c:.2f} °C); 95 % intervals; "
                         f"P(top {args.top}) from {args.draws} Monte Carlo draws (seed {args.seed})",
                         width=screen.SCREEN_WIDTH, replace_whitespace=False))
@@ -268,7 +268,8 @@ def cmd_analyse(args: argparse.Namespace) -> int:
 
 def cmd_report(args: argparse.Namespace) -> int:
     found, ranked = _ranked(args)
-    path = report.write_report(args.db, args.out, found.settings, ranked=ranked, top_k=args.top, metric=args.metric)
+    path = report.write_report(args.db, args.out, found.settings, ranked=ranked, top_k=args.top, metric=args.metric,
+                               currency=args.currency)
     print(f"report written to {path} (self-contained; opens offline)")
     return 0
 
@@ -358,6 +359,9 @@ def build_parser() -> argparse.ArgumentParser:
         p.add_argument("--demote", help="flag codes that move a catalyst below all unflagged ones")
         p.add_argument("--draws", type=int, default=4000, help="Monte Carlo draws for rank intervals (default 4000)")
         p.add_argument("--seed", type=int, default=20261201, help="Monte Carlo seed (default 20261201)")
+        p.add_argument("--currency", default=os.environ.get("CATALOG_CURRENCY"),
+                       help="currency of the catalysts' price_per_gram, shown with prices, e.g. EUR "
+                            "(default: $CATALOG_CURRENCY)")
         p.add_argument("--out", required=(name == "report"),
                        help="output file; the extension picks the format" if name == "rank" else "HTML file to write")
     return parser

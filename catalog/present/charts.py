@@ -449,7 +449,11 @@ def pareto_chart(catalysts: pd.DataFrame, x_metric: str, y_metric: str, front: I
         tooltip=[alt.Tooltip("catalyst_id:N", title="catalyst"), alt.Tooltip("x:Q", title=x_title, format=".3g"),
                  alt.Tooltip("y:Q", title=y_title, format=".3g"), alt.Tooltip("pareto:N", title="Pareto set"),
                  alt.Tooltip("warning:N", title="warning")])
-    labels_layer = base.mark_text(align="left", dx=7, dy=-6, fontSize=10).encode(x=x, y=y, text="label:N")
+    # Only the Pareto set and the warned catalysts are labelled: a label on every point piles up in the crowd of
+    # middling catalysts; the tooltip names every point.
+    named = frame[frame["pareto"] | (frame["warning"] != "")]
+    labels_layer = alt.Chart(named).mark_text(align="left", dx=7, dy=-6, fontSize=10).encode(x=x, y=y,
+                                                                                          text="label:N")
     path = alt.Chart(frame[frame["pareto"]].sort_values("x")).mark_line(color="black", strokeDash=[3, 2]).encode(
         x="x:Q", y="y:Q", order="x:Q")
     return alt.layer(path, dots, labels_layer).properties(

@@ -14,14 +14,17 @@ from catalog.present.numbers import format_number, unit_label
 from catalog.units import from_si
 
 __all__ = [
-    "ENHANCEMENT", "ENHANCEMENT_SHORT", "FIGURES", "figure_name", "flag_title", "flags_text", "measurement_words",
-    "settings_rows",
+    "ENHANCEMENT", "ENHANCEMENT_SHORT", "FIGURES", "NO_CURRENCY", "figure_name", "flag_title", "flags_text",
+    "measurement_words", "settings_rows",
 ]
 
 #: The one name of a catalyst's rate over the blank rate at the same temperature.
 ENHANCEMENT = "rate enhancement over the uncatalysed blank"
 #: Its short form, where space is tight (axis titles, table headers).
 ENHANCEMENT_SHORT = "rate enhancement"
+
+#: Shown for prices when no currency is set.
+NO_CURRENCY = "currency unit"
 
 #: Ranking figure key → (name, short name, display unit as understood by ``catalog.units``; None: no unit).
 FIGURES: dict[str, tuple[str, str, str | None]] = {
@@ -65,7 +68,7 @@ _SETTINGS = {
 def figure_name(key: str, short: bool = False, currency: str | None = None) -> str:
     """Name of a ranking figure with its unit, e.g. 'TOF [s⁻¹]' (short) or 'apparent activation energy [kJ/mol]'."""
     name, short_name, unit = FIGURES.get(key, (key.replace("_", " "), key.replace("_", " "), None))
-    label = unit_label(unit, currency) if unit else ""
+    label = unit_label(unit, currency or NO_CURRENCY) if unit else ""
     text = short_name if short else name
     return f"{text} [{label}]" if label else text
 
