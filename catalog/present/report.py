@@ -324,7 +324,7 @@ def render_report(results: Results, ranked: pd.DataFrame, top_k: int, points: pd
                   f"Blank model: Ea = {format_interval(*blank_ea, 'kJ/mol')} (95 %) from {blank['n']} trials "
                   f"between {format_number(from_si(blank['t_min'], 'degC'))} and "
                   f"{format_number(from_si(blank['t_max'], 'degC'), 'degC')}.")
-    ranking_intro = (f"Ranked on {labels.figure_name(metric, currency=currency)} at {t_ref_c:.1f} °C; intervals "
+    ranking_intro = (f"Ranked on {labels.FIGURES.get(metric, (metric,))[0]} ({t_ref_c:.1f} °C); intervals "
                      f"are 95 %; the shortlist (shaded) is the top {top_k}. {MISSING} or an empty cell is a figure "
                      "that could not be computed from the data. Flags are shown by title; the small code beside "
                      "each is what --exclude and --demote take.")
