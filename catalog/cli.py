@@ -20,7 +20,7 @@ from catalog.analysis.settings import Settings
 from catalog.core import hazard
 from catalog.errors import CatalogError
 from catalog.ingest.campaign import CATALYST_COLUMNS, TRIAL_COLUMNS, read_source
-from catalog.present import exports, labels, report, screen
+from catalog.present import exports, labels, report, screen, tradeoff
 from catalog.present.numbers import format_interval
 from catalog.units import UnitProblem, celsius, from_si, parse_temperature
 
@@ -223,9 +223,11 @@ def _ranked(args: argparse.Namespace):
     found = results.get_results(args.db, settings, progress=None if args.quiet else _progress)
     if found.catalysts.empty:
         raise CatalogError(f"{store.resolve_path(args.db)}: no catalysed trials to rank yet")
+    # The Pareto column compares activity with price (or stability): a low Ea is not a merit.
+    trade_off = None if args.metric == "score" else tradeoff.trade_off_axes(found.catalysts, args.metric)
     ranked = ranking.rank(found.catalysts, metric=args.metric, weights=weights, top_k=args.top,
                           exclude_flags=_codes(args.exclude), demote_flags=_codes(args.demote),
-                          n_draws=args.draws, seed=args.seed)
+                          n_draws=args.draws, seed=args.seed, pareto_metrics=trade_off)
     return found, ranked
 
 

@@ -109,3 +109,12 @@ def test_a_refused_header_does_not_cascade_and_repeats_collapse(tmp_path, capsys
     assert "more like this" in err
     assert err.count("is not one of") <= 3
     assert len(err.splitlines()) < 12
+
+
+def test_pareto_column_weighs_activity_against_price_not_low_ea(demo_db, tmp_path):
+    out = tmp_path / "s.csv"
+    assert main(["rank", "--db", str(demo_db), "--out", str(out), "--quiet"]) == 0
+    rows = {r["catalyst_id"]: r for r in _rows(out)}
+    # The demo's transport-limited catalyst has the lowest Ea: on a TOF-against-Ea front it would look optimal.
+    flagged = [c for c, r in rows.items() if "transport-ea" in r["flags"]]
+    assert flagged and all(rows[c]["pareto"] == "False" for c in flagged)

@@ -18,7 +18,7 @@ from catalog.analysis import results
 from catalog.analysis.settings import Settings
 from catalog.core.hazard import CAUTION
 from catalog.errors import CatalogError
-from catalog.present import charts, report
+from catalog.present import charts, report, tradeoff
 
 
 @pytest.fixture(scope="module")
@@ -298,3 +298,16 @@ def test_report_is_replaced_whole(demo, tmp_path):
     report.write_report(db, target, Settings(), top_k=2)
     assert target.read_text(encoding="utf-8").startswith("<!DOCTYPE html>")
     assert [p.name for p in tmp_path.iterdir()] == ["report.html"]  # no temporary file left behind
+
+
+def test_trade_off_chart_marks_transport_warnings_and_has_no_ea_axis(demo):
+    _, res, _ = demo
+    chart, words = report._trade_off_figure(res.catalysts, "tof", "EUR")
+    spec = chart.to_dict()
+    titles = json.dumps(spec)
+    assert "price [EUR/g]" in titles and "Ea" not in titles.replace("EUR", "")
+    rows = [r for data in spec["datasets"].values() for r in data if "warning" in r]
+    warned = {r["catalyst_id"] for r in rows if r["warning"]}
+    assert warned == set(tradeoff.transport_warnings(res.catalysts)) & {r["catalyst_id"] for r in rows}
+    assert warned, "the demo has a transport-flagged catalyst"
+    assert "transport warning" in words

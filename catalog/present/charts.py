@@ -437,7 +437,7 @@ def pareto_chart(catalysts: pd.DataFrame, x_metric: str, y_metric: str, front: I
     keep &= (frame["x"] > 0 if log_x else True) & (frame["y"] > 0 if log_y else True)
     frame = frame[keep].reset_index(drop=True)
     frame["pareto"] = frame["catalyst_id"].isin(on_front)
-    frame["warning"] = frame["catalyst_id"].map(warnings).fillna("")
+    frame["warning"] = [warnings.get(c, "") for c in frame["catalyst_id"]]
     frame["label"] = [f"{c} ⚠" if w else c for c, w in zip(frame["catalyst_id"], frame["warning"], strict=True)]
     x_title, y_title = x_title or x_metric, y_title or y_metric
     x = alt.X("x:Q", title=x_title, scale=alt.Scale(type="log") if log_x else alt.Scale(zero=False))

@@ -355,7 +355,7 @@ def write_report(db: str | os.PathLike | None, path: str | os.PathLike, settings
     settings : Settings
     ranked : DataFrame, optional
         A ranking already made (e.g. with the user's weights and exclusions); by default
-        ``ranking.rank(results.catalysts, metric=metric, top_k=top_k)``.
+        ``ranking.rank`` on ``metric`` with its Pareto column on :func:`catalog.present.tradeoff.trade_off_axes`.
     top_k : int
         Shortlist size.
     metric : str
@@ -377,7 +377,8 @@ def write_report(db: str | os.PathLike | None, path: str | os.PathLike, settings
         raise CatalogError(f"the report is an HTML page: '{path.name}' should end in .html")
     results = get_results(db, settings)
     if ranked is None:
-        ranked = ranking.rank(results.catalysts, metric=metric, top_k=top_k)
+        trade_off = None if metric == "score" else tradeoff.trade_off_axes(results.catalysts, metric)
+        ranked = ranking.rank(results.catalysts, metric=metric, top_k=top_k, pareto_metrics=trade_off)
     catalysts, trials, points = store.load_campaign(db)
     page = render_report(results, ranked, top_k, points, str(store.resolve_path(db)),
                          data_hash(catalysts, trials, points), metric=metric, currency=currency)
