@@ -30,15 +30,9 @@ import pandas as pd
 
 from catalog import __version__
 from catalog.errors import CatalogError, DatabaseBusyError, Problem, ValidationError
-from catalog.ingest.campaign import (
-    CATALYST_COLUMNS,
-    TRIAL_COLUMNS,
-    CampaignSource,
-    RawTable,
-    check_catalysts,
-    check_trials,
-    trace_layout,
-)
+from catalog.ingest.columns import CATALYST_COLUMNS, TRIAL_COLUMNS
+from catalog.ingest.sources import CampaignSource, RawTable
+from catalog.ingest.validate import check_catalysts, check_trials, trace_layout
 from catalog.units import from_si
 
 DEFAULT_DB = "catalog.duckdb"
@@ -981,7 +975,7 @@ def correct(db: str | os.PathLike | None, table: str, record_id: str, column: st
     record_id : str
         The trial or catalyst id.
     column : str
-        A column of the import contract (:data:`catalog.ingest.campaign.TRIAL_COLUMNS` or ``CATALYST_COLUMNS``), not the id.
+        A column of the import contract (:data:`catalog.ingest.columns.TRIAL_COLUMNS` or ``CATALYST_COLUMNS``), not the id.
     value_text : str
         The new value as it would be typed in an import cell.
     who, reason : str, optional

@@ -18,7 +18,7 @@ from test_import import snapshot, write_campaign
 
 from catalog import store
 from catalog.errors import CatalogError
-from catalog.ingest.campaign import read_source
+from catalog.ingest.sources import read_source
 
 FILES = ("catalysts.csv", "trials.csv", "traces.csv")
 
