@@ -58,14 +58,15 @@ def stream_member(
     return read
 
 
-def check_unpacked_size(path: Path, limit: int = WORKBOOK_UNPACKED_LIMIT) -> None:
+def check_unpacked_size(path: Path, limit: int | None = None) -> None:
     """Refuse a workbook whose members together decompress to more than ``limit`` bytes.
 
-    Every member is decompressed and counted without being kept, so the check costs time but no memory.
+    ``limit`` defaults to :data:`WORKBOOK_UNPACKED_LIMIT`. Every member is decompressed and counted without being
+    kept, so the check costs time but no memory.
     """
     label = path.name
     with open_zip(path, label) as archive:
-        left = limit
+        left = WORKBOOK_UNPACKED_LIMIT if limit is None else limit
         for info in archive.infolist():
             if not info.is_dir():
                 left -= stream_member(archive, info, left, label, lambda block: None)

@@ -48,6 +48,7 @@ def map_headers(
     found: dict[str, Found] = {}
     problems: list[Problem] = []
     notes: list[str] = []
+    seen: dict[str, int] = {}  # every contract name met, even one whose unit was refused
     for position, header in enumerate(headers):
         parsed = parse_header(header)
         column = spec.get(parsed.name)
@@ -55,10 +56,11 @@ def map_headers(
             if parsed.name:
                 notes.append(f"{label}: column '{header}' is not part of the format and was ignored")
             continue
-        if parsed.name in found:
+        if parsed.name in seen:
             problems.append(Problem(label, 1, header, f"column '{parsed.name}' appears twice (columns "
-                                                      f"{found[parsed.name].position + 1} and {position + 1})"))
+                                                      f"{seen[parsed.name] + 1} and {position + 1})"))
             continue
+        seen[parsed.name] = position
         scale, shift = 1.0, 0.0
         if column.kind == "number" and column.unit is not None:
             unit = parsed.unit if parsed.unit else column.unit
@@ -81,9 +83,9 @@ def map_headers(
     return found, problems, notes
 
 
-def rows(mask) -> np.ndarray:
+def rows(mask) -> list[int]:
     """Spreadsheet row numbers of the true entries of a boolean mask over data rows."""
-    return np.flatnonzero(np.asarray(mask, dtype=bool)) + 2
+    return (np.flatnonzero(np.asarray(mask, dtype=bool)) + 2).tolist()
 
 
 def check_column(label: str, raw: pd.Series, column: Column, at: Found) -> tuple[pd.Series, list[Problem]]:
