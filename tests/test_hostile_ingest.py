@@ -240,3 +240,18 @@ def test_stream_member_stops_on_the_real_byte_count():
         with pytest.raises(Exception, match="unpacks to more than"):
             archive.stream_member(z, z.getinfo("big.xml"), 1_000_000, "upload.zip", seen.append)
     assert sum(map(len, seen)) <= 1_000_000
+
+
+@pytest.mark.parametrize("column, value, words", [
+    ("catalyst_id", "", "column 'catalyst_mass': a blank trial (no catalyst_id) has no catalyst mass"),
+    ("temperature", "5000 degC", "plausible range for temperature"),
+    ("temperature", "1e308 degC", "plausible range for temperature"),
+    ("catalyst_mass", "1e308 kg", "plausible range for catalyst_mass"),
+])
+def test_correction_goes_through_the_same_checks(seeded, tmp_path, capsys, column, value, words):
+    db = tmp_path / "store.duckdb"
+    shutil.copy(seeded[0], db)
+    code = main(["correct", "trial", "R1", column, value, "--db", str(db), "--reason", "hostile"])
+    err = capsys.readouterr().err
+    assert code == 2 and words in err and "Traceback" not in err, err
+    assert snapshot(db)["trials"].equals(seeded[1]["trials"])

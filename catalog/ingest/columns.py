@@ -8,7 +8,7 @@ Two kinds of range guard every number, both in SI:
   probable typing or unit slip (5000 °C for 50 °C, hours written as seconds).
 
 Extending a range: when a real experiment falls outside ``plausible`` (a cryogenic run, a week-long trial), widen
-that column's ``plausible`` tuple below and add the case to ``tests/test_validate.py``; every importer, the
+that column's ``plausible`` tuple below and add the case to ``tests/test_hostile_ingest.py``; every importer, the
 corrections command and the app read these specs, so that one edit is the whole change.
 """
 
