@@ -104,6 +104,14 @@ CSV_ATTACKS = [
      ["catalysts.csv, row 2, column 'metal'", "'nan' is not an element symbol"]),
     ("metal 'NaN'", {"catalysts": CATALYSTS.replace("PdC-A,Pd,", "PdC-A,NaN,")},
      ["catalysts.csv, row 2, column 'metal'", "not an element symbol"]),
+    ("empty traces file", {"traces": ""}, ["traces.csv, column 'trial_id': required column is missing"]),
+    ("traces header only", {"traces": "trial_id,time [s],value\n"},
+     ["trials.csv, row 2, column 'trial_id': trial 'R1' has no trace points in traces.csv"]),
+    ("ragged traces row", {"traces": _trace_rows().replace("R1,60,", "R1,60,7,8,")}, ["traces.csv"]),
+    ("binary junk in traces", {"traces": _trace_rows().replace("R2,60,", "R2,\x00\x01,")},
+     ["traces.csv, row", "column 'time [s]'"]),
+    ("time in a temperature unit", {"traces": _trace_rows().replace("time [s]", "time [degC]")},
+     ["traces.csv, row 1, column 'time [degC]'"]),
     ("not UTF-8", {"catalysts": CATALYSTS.replace("carbon", "carb\udcffon")}, ["catalysts.csv", "not UTF-8"]),
 ]
 
