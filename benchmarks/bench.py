@@ -8,7 +8,7 @@ A clean synthetic campaign with known kinetics (:func:`catalog.datasets.synth.wr
 folder, then each phase runs in its own Python process so that its peak resident memory (``ru_maxrss``) is its own:
 
 - ``read_csv``: DuckDB reading the trace file into an in-memory table and nothing else, the floor for an import;
-- ``import``: :func:`catalog.ingest.campaign.read_source` + :func:`catalog.store.import_campaign` into a fresh store file;
+- ``import``: :func:`catalog.ingest.sources.read_source` + :func:`catalog.store.import_campaign` into a fresh store file;
 - ``analysis``: :func:`catalog.analysis.results.get_results` on the cold store (every trial fitted, results stored);
 - ``rank``: :func:`catalog.analysis.results.get_results` again (now a cached read, the data a ranking page shows) and
   :func:`catalog.analysis.ranking.rank` on the catalyst table;
@@ -44,7 +44,7 @@ from catalog import store
 from catalog.analysis import results
 from catalog.analysis.settings import Settings
 from catalog.datasets import synth
-from catalog.ingest import campaign
+from catalog.ingest import sources
 
 # Targets of the campaign-scale issue, as ratios measured in one run on the same files.
 END_TO_END_TARGET = 0.1      # (import + analysis + rank) / per-trial curve_fit loop
@@ -68,7 +68,7 @@ def phase_read_csv(work: Path) -> dict:
     """DuckDB's own CSV reader loading the trace file into an in-memory table: the floor for any import."""
     con = duckdb.connect()
     start = time.perf_counter()
-    con.execute("CREATE TABLE raw AS SELECT * FROM read_csv(?)", [str(work / CAMPAIGN / campaign.TRACES_FILE)])
+    con.execute("CREATE TABLE raw AS SELECT * FROM read_csv(?)", [str(work / CAMPAIGN / sources.TRACES_FILE)])
     elapsed = time.perf_counter() - start
     con.close()
     return {"seconds": elapsed}
@@ -78,7 +78,7 @@ def phase_import(work: Path) -> dict:
     """Read, validate and store the campaign in a fresh store file."""
     (work / STORE).unlink(missing_ok=True)
     start = time.perf_counter()
-    source = campaign.read_source(work / CAMPAIGN)
+    source = sources.read_source(work / CAMPAIGN)
     report = store.import_campaign(work / STORE, source)
     return {"seconds": time.perf_counter() - start, "trials": report.n_trials, "points": report.n_points}
 
@@ -120,8 +120,8 @@ def phase_baseline(work: Path, limit: int) -> dict:
     """The per-trial curve_fit loop, on the first ``limit`` trials; reading and Arrhenius always on everything."""
     start = time.perf_counter()
     folder = work / CAMPAIGN
-    traces = pd.read_csv(folder / campaign.TRACES_FILE)
-    trials = pd.read_csv(folder / campaign.TRIALS_FILE)
+    traces = pd.read_csv(folder / sources.TRACES_FILE)
+    trials = pd.read_csv(folder / sources.TRIALS_FILE)
     read = time.perf_counter() - start
     trial_col, time_col, value_col = traces.columns[:3]
     rates = {}
@@ -214,7 +214,7 @@ def main(argv: list[str] | None = None) -> int:
               f"Python {sys.version.split()[0]}, DuckDB {duckdb.__version__}, pandas {pd.__version__}")
         start = time.perf_counter()
         made = synth.write_bulk_campaign(work / CAMPAIGN, n, args.points, seed=args.seed)
-        size = (work / CAMPAIGN / campaign.TRACES_FILE).stat().st_size
+        size = (work / CAMPAIGN / sources.TRACES_FILE).stat().st_size
         print(f"synthetic campaign: {time.perf_counter() - start:.1f} s, {made['trials']:,} trials "
               f"({made['blank_trials']:,} blanks), trace file {size / 2**20:,.0f} MiB in {work}")
 

@@ -19,7 +19,8 @@ from catalog.analysis import ranking, results
 from catalog.analysis.settings import Settings
 from catalog.core import hazard
 from catalog.errors import CatalogError
-from catalog.ingest.campaign import CATALYST_COLUMNS, TRIAL_COLUMNS, read_source
+from catalog.ingest.columns import CATALYST_COLUMNS, TRIAL_COLUMNS
+from catalog.ingest.sources import read_source
 from catalog.present import exports, labels, report, screen, tradeoff
 from catalog.present.numbers import format_interval
 from catalog.units import UnitProblem, celsius, from_si, parse_temperature

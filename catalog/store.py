@@ -30,15 +30,9 @@ import pandas as pd
 
 from catalog import __version__
 from catalog.errors import CatalogError, DatabaseBusyError, Problem, ValidationError
-from catalog.ingest.campaign import (
-    CATALYST_COLUMNS,
-    TRIAL_COLUMNS,
-    CampaignSource,
-    RawTable,
-    check_catalysts,
-    check_trials,
-    trace_layout,
-)
+from catalog.ingest.columns import CATALYST_COLUMNS, LONGEST_TRACE_S, TRIAL_COLUMNS
+from catalog.ingest.sources import CampaignSource, RawTable
+from catalog.ingest.validate import check_catalysts, check_trials, trace_layout
 from catalog.units import from_si
 
 DEFAULT_DB = "catalog.duckdb"
@@ -344,7 +338,8 @@ def import_campaign(
         problems += trace_problems
         notes += trace_notes
         skipped_trials: list[str] = []
-        if overlap:
+        # Without clean points there is no staged trace to compare with the stored one (and nothing will be written).
+        if overlap and not trace_problems:
             with connect(path, read_only=True) as con:
                 stored_trials = con.execute(
                     f"SELECT {', '.join(_TRIAL_FIELDS)} FROM trials WHERE trial_id IN (SELECT * FROM unnest(?))", [overlap]
@@ -431,6 +426,10 @@ _TRACE_FAULTS = (
     ("trial_id IS NULL OR trial_id = ''", "trial_id", "trial_id is empty"),
     ("time_num IS NULL OR NOT isfinite(time_num)", "time", "time {time_text!r} is not a finite number"),
     ("value_num IS NULL OR NOT isfinite(value_num)", "value", "value {value_text!r} is not a finite number"),
+    ("abs(time_num) > (SELECT min(time_limit) FROM factors)", "time",
+     f"time {{time_text}} is outside the plausible range (a trace longer than {LONGEST_TRACE_S:g} s)"),
+    ("abs(value_num) > (SELECT min(value_limit) FROM factors)", "value",
+     "value {value_text} is too large to hold once converted to SI"),
     ("trial_id <> '' AND trial_id NOT IN (SELECT trial_id FROM factors)", "trial_id",
      "trial '{trial_id}' is not in the trials table of this campaign"),
 )
@@ -460,6 +459,9 @@ def _stage_traces(
         "scale": trials["signal_scale"],
         "shift": trials["signal_shift"],
         "time_scale": time_scale,
+        # Bounds in the file's units, so the checks run on the numbers as read: no product can overflow.
+        "time_limit": LONGEST_TRACE_S / time_scale,
+        "value_limit": 1e300 / trials["signal_scale"].fillna(1.0).clip(lower=1.0),
     }).dropna(subset=["trial_id"]))
     if not (source.traces.csv_path is not None and _stage_typed(stage, source, names)):
         try:
@@ -538,7 +540,7 @@ def _stage_typed(stage: duckdb.DuckDBPyConnection, source: CampaignSource, names
         "CREATE VIEW typed AS SELECT rowid + 2 AS line, trim(trial_id) AS trial_id, time AS time_num, "
         "value AS value_num FROM raw"
     )
-    cells = " OR ".join(f"({c})" for c, _, _ in _TRACE_FAULTS[:3])
+    cells = " OR ".join(f"({c})" for c, _, _ in _TRACE_FAULTS[:5])
     # One streaming scan counts the bad cells and the times that do not increase. Lag over the rows as they come is
     # far cheaper than a window per trial, and exact when they came in file order (checked: consecutive lines) and
     # each trial's rows are contiguous (runs = trials); otherwise the window per trial decides.
@@ -981,7 +983,7 @@ def correct(db: str | os.PathLike | None, table: str, record_id: str, column: st
     record_id : str
         The trial or catalyst id.
     column : str
-        A column of the import contract (:data:`catalog.ingest.campaign.TRIAL_COLUMNS` or ``CATALYST_COLUMNS``), not the id.
+        A column of the import contract (:data:`catalog.ingest.columns.TRIAL_COLUMNS` or ``CATALYST_COLUMNS``), not the id.
     value_text : str
         The new value as it would be typed in an import cell.
     who, reason : str, optional

@@ -29,7 +29,8 @@ from catalog.analysis.settings import Settings
 from catalog.core import hazard
 from catalog.datasets import synth
 from catalog.errors import CatalogError, Problem, ValidationError
-from catalog.ingest import campaign
+from catalog.core.measurements import MEASUREMENTS
+from catalog.ingest import sources, validate
 from catalog.present import charts, exports, report
 from catalog.units import celsius, from_si, kelvin
 
@@ -81,10 +82,10 @@ def _seed_if_new(db: str) -> bool:
             return False
     with tempfile.TemporaryDirectory() as tmp:
         folder = SAMPLE_FOLDER
-        if not (folder / campaign.TRACES_FILE).is_file():
+        if not (folder / sources.TRACES_FILE).is_file():
             folder = Path(tmp) / "demo"
             synth.write_campaign(synth.demo_campaign(), folder)
-        store.import_campaign(db, campaign.read_source(folder), demo=True, who="catalog demo")
+        store.import_campaign(db, sources.read_source(folder), demo=True, who="catalog demo")
     return True
 
 
@@ -196,7 +197,7 @@ def trial_table(trials: pd.DataFrame) -> pd.DataFrame:
 
 def raw_signal_chart(points: pd.DataFrame, measurement: str) -> alt.Chart:
     """The stored readings of one trial in the measurement's usual unit, as recorded (before any conversion)."""
-    unit = campaign.MEASUREMENTS[measurement][0]
+    unit = MEASUREMENTS[measurement].reference_unit
     data = pd.DataFrame({"time [min]": from_si(points["t"].to_numpy(float), "min"),
                          f"signal [{unit}]": from_si(points["value"].to_numpy(float), unit)})
     return alt.Chart(data).mark_circle(size=18).encode(
@@ -383,7 +384,7 @@ def page_log_trial() -> None:
                 support = a.text_input("Support", key="log_new_support").strip()
                 description = b.text_input("Description", key="log_new_description").strip()
                 catalyst_rows = [[catalyst_id, metal, _cell(loading), _cell(dispersion), support, description]]
-        measurement = st.selectbox("Measurement", list(campaign.MEASUREMENTS), key="log_measurement",
+        measurement = st.selectbox("Measurement", list(MEASUREMENTS), key="log_measurement",
                                    format_func=MEASUREMENT_LABELS.get)
         fields: list[tuple[str, object, str | None]] = []
 
@@ -457,16 +458,16 @@ def _save_logged_trial(db, trial_id, catalyst_id, measurement, signal_unit, time
         row.append(_cell(None if value is None else float(value)))
     with tempfile.TemporaryDirectory() as tmp:
         folder = Path(tmp)
-        (folder / campaign.CATALYSTS_FILE).write_text(_csv_text(catalyst_header, catalyst_rows), encoding="utf-8")
-        (folder / campaign.TRIALS_FILE).write_text(_csv_text(header, [row]), encoding="utf-8")
-        (folder / campaign.TRACES_FILE).write_text(
+        (folder / sources.CATALYSTS_FILE).write_text(_csv_text(catalyst_header, catalyst_rows), encoding="utf-8")
+        (folder / sources.TRIALS_FILE).write_text(_csv_text(header, [row]), encoding="utf-8")
+        (folder / sources.TRACES_FILE).write_text(
             _csv_text(["trial_id", f"time [{time_unit}]", "value"], [[trial_id, t, v] for t, v in rows]),
             encoding="utf-8")
         try:
-            report = store.import_campaign(db, campaign.read_source(folder), who=operator or None)
+            report = store.import_campaign(db, sources.read_source(folder), who=operator or None)
         except ValidationError as exc:
-            show_problems(exc.problems, {campaign.TRIALS_FILE: "form", campaign.CATALYSTS_FILE: "new catalyst",
-                                         campaign.TRACES_FILE: "trace (row 2 = first reading)"})
+            show_problems(exc.problems, {sources.TRIALS_FILE: "form", sources.CATALYSTS_FILE: "new catalyst",
+                                         sources.TRACES_FILE: "trace (row 2 = first reading)"})
             return
     for note in report.notes:
         st.caption(f"Note: {note}")
@@ -493,7 +494,7 @@ def _stage_upload(files, folder: Path) -> Path:
         return target
     campaign_dir = folder / "campaign"
     campaign_dir.mkdir()
-    fixed = (campaign.CATALYSTS_FILE, campaign.TRIALS_FILE, campaign.TRACES_FILE)
+    fixed = (sources.CATALYSTS_FILE, sources.TRIALS_FILE, sources.TRACES_FILE)
     wanted = {name.split(".")[0]: name for name in fixed}
     if len(files) == 1 and names[0].endswith(".zip"):
         try:
@@ -521,7 +522,7 @@ def _stage_upload(files, folder: Path) -> Path:
     return campaign_dir
 
 
-def _trace_preview(source: campaign.CampaignSource) -> tuple[pd.DataFrame, int]:
+def _trace_preview(source: sources.CampaignSource) -> tuple[pd.DataFrame, int]:
     if source.traces.csv_path is not None:
         head = pd.read_csv(source.traces.csv_path, nrows=5, dtype=str, keep_default_na=False)
         with source.traces.csv_path.open("rb") as handle:
@@ -546,16 +547,16 @@ def page_import() -> None:
     who = st.text_input("Imported by", key="import_who", help="Recorded with the import; empty: the server's login")
     with tempfile.TemporaryDirectory() as tmp:
         try:
-            source = campaign.read_source(_stage_upload(files, Path(tmp)))
+            source = sources.read_source(_stage_upload(files, Path(tmp)))
         except ValidationError as exc:
             show_problems(exc.problems)
             return
         except CatalogError as exc:
             st.error(str(exc))
             return
-        checked_catalysts = campaign.check_catalysts(source.catalysts)
+        checked_catalysts = validate.check_catalysts(source.catalysts)
         known = set(checked_catalysts.frame["catalyst_id"].dropna()) | set(registry(db)["catalyst_id"])
-        checked_trials = campaign.check_trials(source.trials, known)
+        checked_trials = validate.check_trials(source.trials, known)
         trace_head, n_points = _trace_preview(source)
         st.subheader("What will be written")
         cols = st.columns(3)
@@ -652,7 +653,7 @@ def page_trials() -> None:
         a, b, c = st.columns(3)
         names = [BLANK_LABEL, *sorted(trials["catalyst_id"].dropna().unique())]
         chosen = a.multiselect("Catalyst", names, key="trials_catalyst", placeholder="all catalysts")
-        kinds = b.multiselect("Measurement", list(campaign.MEASUREMENTS), key="trials_measurement",
+        kinds = b.multiselect("Measurement", list(MEASUREMENTS), key="trials_measurement",
                               format_func=MEASUREMENT_LABELS.get, placeholder="all")
         operators = c.multiselect("Operator", sorted(trials["operator"].dropna().unique()), key="trials_operator",
                                   placeholder="all")

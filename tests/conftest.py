@@ -6,7 +6,7 @@ import pytest
 
 from catalog import store
 from catalog.datasets.synth import demo_campaign, write_campaign
-from catalog.ingest import campaign
+from catalog.ingest import sources
 
 
 @pytest.fixture(scope="session")
@@ -15,5 +15,5 @@ def demo_db(tmp_path_factory):
     folder = tmp_path_factory.mktemp("demo_campaign")
     write_campaign(demo_campaign(), folder)
     db = folder / "demo.duckdb"
-    store.import_campaign(db, campaign.read_source(folder))
+    store.import_campaign(db, sources.read_source(folder))
     return db

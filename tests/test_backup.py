@@ -15,7 +15,7 @@ from test_import import write_campaign
 from catalog import store
 from catalog.cli import main
 from catalog.errors import CatalogError
-from catalog.ingest.campaign import read_source
+from catalog.ingest.sources import read_source
 
 
 def _tables(db) -> dict[str, pd.DataFrame]:

@@ -16,7 +16,7 @@ from test_import import write_campaign
 
 from catalog import store
 from catalog.datasets import synth
-from catalog.ingest.campaign import read_source
+from catalog.ingest.sources import read_source
 
 
 def _holder(db, seconds: float | None) -> subprocess.Popen:

@@ -19,7 +19,7 @@ from test_import import write_campaign
 
 from catalog import store
 from catalog.datasets import synth
-from catalog.ingest.campaign import read_source
+from catalog.ingest.sources import read_source
 
 N_TRIALS = 2500
 N_POINTS = 150

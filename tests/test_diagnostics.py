@@ -14,7 +14,7 @@ from catalog.analysis.pipeline import Analysis, analyse
 from catalog.analysis.settings import Settings
 from catalog.core import arrhenius, hazard, transport
 from catalog.datasets import synth
-from catalog.ingest import campaign
+from catalog.ingest import sources
 
 TRANSPORT = {"transport-ea", "weisz-prater", "mears", "loading-slope"}
 DEACTIVATION = {"deactivation", "late-shortfall", "plateau-short"}
@@ -23,7 +23,7 @@ DEACTIVATION = {"deactivation", "late-shortfall", "plateau-short"}
 def _analysed(campaign_data, folder) -> Analysis:
     synth.write_campaign(campaign_data, folder / "campaign")
     db = folder / "campaign.duckdb"
-    store.import_campaign(db, campaign.read_source(folder / "campaign"))
+    store.import_campaign(db, sources.read_source(folder / "campaign"))
     return analyse(*store.load_campaign(db), Settings())
 
 

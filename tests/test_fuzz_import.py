@@ -18,7 +18,7 @@ from test_import import snapshot, write_campaign
 
 from catalog import store
 from catalog.errors import CatalogError
-from catalog.ingest.campaign import read_source
+from catalog.ingest.sources import read_source
 
 FILES = ("catalysts.csv", "trials.csv", "traces.csv")
 
@@ -37,7 +37,7 @@ def seeded(tmp_path_factory) -> tuple[Path, dict]:
 def campaigns(draw) -> dict[str, bytes]:
     """A valid three-file campaign: 1-3 catalysts, 1-4 trials (some blank), 2-6 increasing points each."""
     n_cat = draw(st.integers(1, 3))
-    metals = draw(st.lists(st.sampled_from(["Pt", "Pd", "Ru", "Rh", "Ni", "Co"]), min_size=n_cat, max_size=n_cat))
+    metals = draw(st.lists(st.sampled_from(["Pt", "Pd", "Ru", "Rh", "Ni", "Co", ""]), min_size=n_cat, max_size=n_cat))
     catalysts = ["catalyst_id,metal,metal_loading [wt%],dispersion [%]"]
     for i, metal in enumerate(metals):
         loading = draw(st.floats(0.1, 20, allow_nan=False))
@@ -54,7 +54,8 @@ def campaigns(draw) -> dict[str, bytes]:
         for step in steps:
             traces.append(f"FT{j},{t!r},{draw(st.floats(0, 1e3, allow_nan=False))!r}")
             t += step
-    return {name: ("\n".join(rows) + "\n").encode() for name, rows in zip(FILES, (catalysts, trials, traces))}
+    tables = (catalysts, trials, traces)
+    return {name: ("\n".join(rows) + "\n").encode() for name, rows in zip(FILES, tables, strict=True)}
 
 
 def _bad_number(files, data):
@@ -139,6 +140,7 @@ def _import_into_copy(seeded: tuple[Path, dict], files: dict[str, bytes]):
         return outcome, before, snapshot(db)
 
 
+@pytest.mark.slow
 @settings(max_examples=100, deadline=None)
 @given(files=campaigns())
 def test_valid_campaigns_import_completely(seeded, files):
@@ -150,6 +152,7 @@ def test_valid_campaigns_import_completely(seeded, files):
     assert len(after["trace_points"]) == len(before["trace_points"]) + files["traces.csv"].count(b"\n") - 1
 
 
+@pytest.mark.slow
 @settings(max_examples=200, deadline=None)
 @given(files=campaigns(), corruption=st.sampled_from(CORRUPTIONS), data=st.data())
 def test_corrupted_campaigns_import_cleanly_or_change_nothing(seeded, files, corruption, data):

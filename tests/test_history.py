@@ -20,7 +20,7 @@ from test_import import TRIALS, _trace_rows, snapshot, write_campaign
 from catalog import store
 from catalog.cli import main
 from catalog.errors import CatalogError
-from catalog.ingest.campaign import read_source
+from catalog.ingest.sources import read_source
 
 #: Text a user might type that breaks naive SQL or CSV handling: quotes, separators, keywords, emoji, long text.
 HOSTILE = (

@@ -18,7 +18,7 @@ from scipy import constants
 from catalog import store
 from catalog.cli import main
 from catalog.errors import ValidationError
-from catalog.ingest.campaign import read_source
+from catalog.ingest.sources import read_source
 from catalog.units import si_converter
 
 CATALYSTS = """catalyst_id,metal,metal_loading [wt%],dispersion [%],site_density [umol/g],surface_area [m^2/g],support

@@ -15,7 +15,7 @@ from catalog import store
 from catalog.analysis import results
 from catalog.analysis.settings import Settings
 from catalog.datasets.synth import known_kinetics_campaign, write_campaign
-from catalog.ingest import campaign
+from catalog.ingest import sources
 
 # Five set points with triplicates: with the generator's 4 % trial-to-trial scatter the standard error of Ea is
 # about 0.6 kJ/mol, so the 2 kJ/mol acceptance target sits at better than 3 standard errors.
@@ -27,7 +27,7 @@ def _load(tmp_path, seed: int, **kwargs):
     folder = tmp_path / f"camp{seed}"
     write_campaign(truth, folder)
     db = tmp_path / f"kk{seed}.duckdb"
-    store.import_campaign(db, campaign.read_source(folder))
+    store.import_campaign(db, sources.read_source(folder))
     return truth, db
 
 

@@ -17,7 +17,7 @@ from catalog.analysis.per_trial import trace_amounts
 from catalog.analysis.settings import FIT_VERSION, Settings
 from catalog.core import kinetics
 from catalog.datasets.synth import write_bulk_campaign
-from catalog.ingest import campaign
+from catalog.ingest import sources
 
 N_TRIALS = 60
 # Forty readings keep the generator's 0.1 s time rounding strictly increasing even for its fastest trials.
@@ -33,7 +33,7 @@ def bulk(tmp_path_factory):
 
 def test_stored_rates_match_the_per_trial_reference(bulk, tmp_path):
     db = tmp_path / "scale.duckdb"
-    store.import_campaign(db, campaign.read_source(bulk))
+    store.import_campaign(db, sources.read_source(bulk))
     res = results.get_results(db, Settings())
     assert res.computed and len(res.trials) == N_TRIALS
 
@@ -55,12 +55,12 @@ def test_stored_rates_match_the_per_trial_reference(bulk, tmp_path):
 def _first_trials(source, target, n: int) -> None:
     """Copy a campaign folder keeping only its first ``n`` trials, line for line (so the kept rows are identical)."""
     target.mkdir()
-    shutil.copy(source / campaign.CATALYSTS_FILE, target / campaign.CATALYSTS_FILE)
-    lines = (source / campaign.TRIALS_FILE).read_text(encoding="utf-8").splitlines(keepends=True)
-    (target / campaign.TRIALS_FILE).write_text("".join(lines[: n + 1]), encoding="utf-8")
+    shutil.copy(source / sources.CATALYSTS_FILE, target / sources.CATALYSTS_FILE)
+    lines = (source / sources.TRIALS_FILE).read_text(encoding="utf-8").splitlines(keepends=True)
+    (target / sources.TRIALS_FILE).write_text("".join(lines[: n + 1]), encoding="utf-8")
     keep = {line.split(",", 1)[0] for line in lines[1 : n + 1]}
-    traces = (source / campaign.TRACES_FILE).read_text(encoding="utf-8").splitlines(keepends=True)
-    (target / campaign.TRACES_FILE).write_text(
+    traces = (source / sources.TRACES_FILE).read_text(encoding="utf-8").splitlines(keepends=True)
+    (target / sources.TRACES_FILE).write_text(
         traces[0] + "".join(line for line in traces[1:] if line.split(",", 1)[0] in keep), encoding="utf-8")
 
 
@@ -69,14 +69,14 @@ def test_reanalysis_after_new_trials_fits_only_the_new_ones(bulk, tmp_path):
     part = tmp_path / "first"
     _first_trials(bulk, part, first)
     db = tmp_path / "grow.duckdb"
-    store.import_campaign(db, campaign.read_source(part))
+    store.import_campaign(db, sources.read_source(part))
     messages = []
     results.get_results(db, Settings(), progress=messages.append)
     assert f"fitting {first} trace(s), reusing 0 cached fit(s)" in messages
     before = store.load_fits(db, FIT_VERSION)
     assert len(before) == first
 
-    report = store.import_campaign(db, campaign.read_source(bulk))
+    report = store.import_campaign(db, sources.read_source(bulk))
     assert (report.n_trials, len(report.skipped_trials)) == (added, first)
     messages.clear()
     res = results.get_results(db, Settings(), progress=messages.append)

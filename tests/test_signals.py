@@ -1,4 +1,4 @@
-"""Reference checks for catalog.core.signals: ideal gas, water vapour pressure, molar masses, dispatch."""
+"""Reference checks for catalog.core.signals: ideal gas, water vapour pressure, molar masses."""
 
 import numpy as np
 import pytest
@@ -8,13 +8,11 @@ from iapws.iapws97 import (
 from scipy.constants import physical_constants
 
 from catalog.core.signals import (
-    amount_from_concentration,
     amount_from_gas_volume,
     amount_from_mass_loss,
     amount_from_pressure,
     conversion,
     molar_mass,
-    to_amount,
     water_vapour_pressure,
 )
 
@@ -87,31 +85,6 @@ def test_mass_loss_zeroes_on_first_reading():
     n = amount_from_mass_loss(m, molar_mass("CO2"))
     assert n[0] == 0.0
     assert n[2] == pytest.approx(0.088e-3 / 0.044009, rel=1e-9)
-
-
-def test_to_amount_dispatches_each_measurement():
-    v = np.array([0.0, 1e-6, 2e-6])
-    assert np.allclose(
-        to_amount("gas_volume", v, gas_pressure=1e5, gas_temperature=300.0),
-        amount_from_gas_volume(v, 1e5, 300.0),
-    )
-    assert np.allclose(
-        to_amount("pressure", [1e5, 1.1e5], headspace_volume=1e-4, temperature=300.0, liquid_volume=1e-5),
-        amount_from_pressure(np.array([1e5, 1.1e5]), 1e-4, 300.0),
-    )
-    assert to_amount("concentration", 2.0, liquid_volume=1e-3) == pytest.approx(amount_from_concentration(2.0, 1e-3))
-    assert np.allclose(
-        to_amount("mass_loss", [1.0, 0.999], gas_molar_mass=0.002016), amount_from_mass_loss([1.0, 0.999], 0.002016)
-    )
-
-
-def test_to_amount_reports_bad_requests():
-    with pytest.raises(ValueError, match="needs"):
-        to_amount("pressure", [1e5], temperature=300.0)
-    with pytest.raises(ValueError, match="unknown measurement"):
-        to_amount("colour", [1.0])
-    with pytest.raises(TypeError, match="unknown condition"):
-        to_amount("concentration", [1.0], liquid_volum=1e-3)
 
 
 def test_conversion_uses_product_ratio():

@@ -12,15 +12,8 @@ import numpy as np
 import pandas as pd
 
 from catalog.analysis.settings import TRIAL_FIT_COLUMNS
-from catalog.core import arrhenius, batch, hazard, photons, signals, sites, transport
-
-#: Trial columns each measurement's conversion reads (named as the converters' keywords).
-_CONDITIONS = {
-    "gas_volume": ("gas_pressure", "gas_temperature"),
-    "mass_loss": ("gas_molar_mass",),
-    "pressure": ("headspace_volume", "temperature"),
-    "concentration": ("liquid_volume",),
-}
+from catalog.core import arrhenius, batch, hazard, photons, sites, transport
+from catalog.core.measurements import MEASUREMENTS, condition_arrays, to_amount
 
 
 def trace_amounts(trials: pd.DataFrame, points: pd.DataFrame) -> np.ndarray:
@@ -56,17 +49,15 @@ def _amounts(order: pd.DataFrame, codes: np.ndarray, value: np.ndarray) -> np.nd
     delta = value - value[np.flatnonzero(opens)][codes]
     amount = np.full(len(codes), np.nan)
     kinds = order["measurement"].to_numpy(object)
-    for kind in signals.MEASUREMENTS:
+    for kind in MEASUREMENTS:
         at = (kinds == kind)[codes]
         if not at.any():
             continue
         sub = codes[at]
-        conditions = {name: order[name].to_numpy(float)[sub] for name in _CONDITIONS[kind]}
-        if kind == "gas_volume":
-            conditions["over_water"] = order["collected_over_water"].fillna(False).to_numpy(bool)[sub]
+        conditions = {name: values[sub] for name, values in condition_arrays(kind, order).items()}
         # For mass_loss the converter takes the first reading of the array as zero; every trial's increments
         # start at 0, so the whole group can go through in one call.
-        amount[at] = signals.to_amount(kind, delta[at], **conditions)
+        amount[at] = to_amount(kind, delta[at], **conditions)
     return amount
 
 

@@ -11,14 +11,12 @@ import periodictable
 from scipy.constants import R
 
 __all__ = [
-    "MEASUREMENTS",
     "amount_from_concentration",
     "amount_from_gas_volume",
     "amount_from_mass_loss",
     "amount_from_pressure",
     "conversion",
     "molar_mass",
-    "to_amount",
     "water_vapour_pressure",
 ]
 
@@ -208,69 +206,6 @@ def amount_from_concentration(c, V_liquid):
         Amount in mol.
     """
     return np.asarray(c, dtype=float) * V_liquid
-
-
-# measurement name -> (converter, keyword conditions it needs, keyword conditions with defaults)
-_CONVERTERS = {
-    "gas_volume": (
-        lambda v, k: amount_from_gas_volume(v, k["gas_pressure"], k["gas_temperature"], k["over_water"]),
-        ("gas_pressure", "gas_temperature"),
-        {"over_water": False},
-    ),
-    "mass_loss": (lambda v, k: amount_from_mass_loss(v, k["gas_molar_mass"]), ("gas_molar_mass",), {}),
-    "pressure": (
-        lambda v, k: amount_from_pressure(v, k["headspace_volume"], k["temperature"]),
-        ("headspace_volume", "temperature"),
-        {},
-    ),
-    "concentration": (lambda v, k: amount_from_concentration(v, k["liquid_volume"]), ("liquid_volume",), {}),
-}
-MEASUREMENTS = tuple(_CONVERTERS)
-_KNOWN_CONDITIONS = frozenset(
-    name for _, needed, defaults in _CONVERTERS.values() for name in (*needed, *defaults)
-)
-
-
-def to_amount(measurement, values, **conditions):
-    """Convert a trace of raw SI values to moles of product, choosing the conversion by measurement kind.
-
-    =================  ===========================================  ======================================
-    measurement        values                                       conditions used
-    =================  ===========================================  ======================================
-    ``gas_volume``     collected volume, m³                         gas_pressure (Pa), gas_temperature (K),
-                                                                    over_water (bool, default False)
-    ``mass_loss``      balance reading, kg                          gas_molar_mass (kg/mol)
-    ``pressure``       absolute headspace pressure, Pa              headspace_volume (m³), temperature (K)
-    ``concentration``  product concentration, mol/m³                liquid_volume (m³)
-    =================  ===========================================  ======================================
-
-    Conditions a measurement does not use are ignored, so a whole trial record can be passed; an unknown condition
-    name is an error so that a misspelt keyword is never silently dropped.
-
-    Parameters
-    ----------
-    measurement : str
-        One of :data:`MEASUREMENTS`.
-    values : array_like
-        Raw values in SI units.
-    **conditions
-        Keyword conditions from the table above, SI units.
-
-    Returns
-    -------
-    float or ndarray
-        Amount in mol.
-    """
-    unknown = set(conditions) - _KNOWN_CONDITIONS
-    if unknown:
-        raise TypeError(f"unknown condition(s): {', '.join(sorted(unknown))}")
-    if measurement not in _CONVERTERS:
-        raise ValueError(f"unknown measurement {measurement!r}; expected one of {', '.join(MEASUREMENTS)}")
-    convert, needed, defaults = _CONVERTERS[measurement]
-    missing = [name for name in needed if name not in conditions]
-    if missing:
-        raise ValueError(f"measurement {measurement!r} needs {', '.join(missing)}")
-    return convert(values, {**defaults, **conditions})
 
 
 def conversion(amount, limiting_amount, product_ratio=1.0):

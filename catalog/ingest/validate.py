@@ -1,0 +1,131 @@
+"""The campaign's own rules on top of the typed tables: elements, measurements and their conditions, blanks, water.
+
+Pure: raw tables in, :class:`~catalog.ingest.tables.Checked` SI tables out, with every problem located by file, row
+and column. The store calls these before it writes anything.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import periodictable
+
+from catalog.core.measurements import MEASUREMENTS
+from catalog.core.signals import water_vapour_pressure
+from catalog.errors import Problem
+from catalog.ingest.columns import CATALYST_COLUMNS, TRACE_COLUMNS, TRIAL_COLUMNS
+from catalog.ingest.sources import RawTable, TraceSource
+from catalog.ingest.tables import Checked, check_table, map_headers
+from catalog.units import UnitProblem, celsius, parse_header, si_converter
+
+#: Where gas can be collected over liquid water: the triple point to the critical point (IAPWS-IF97 region 4).
+WATER_T_MIN, WATER_T_MAX = 273.16, 647.096
+_GAS = MEASUREMENTS["gas_volume"]
+_GAS_DEFAULTS = {c.column: c.default for c in _GAS.conditions}
+
+
+def check_catalysts(raw: RawTable) -> Checked:
+    """Validate ``catalysts.csv``: types, units, ranges, unique ids, known element symbols."""
+    checked = check_table(raw, CATALYST_COLUMNS)
+    header = _headers(raw).get("metal", "metal")
+    for i, symbol in checked.frame["metal"].dropna().items():
+        if not _is_element(symbol):
+            checked.problems.append(Problem(raw.label, int(i) + 2, header, f"'{symbol}' is not an element symbol"))
+    return checked
+
+
+def _is_element(symbol: str) -> bool:
+    element = getattr(periodictable, symbol, None)
+    return isinstance(element, periodictable.core.Element) and element.number > 0
+
+
+def _headers(raw: RawTable) -> dict[str, str]:
+    """Contract name -> header as written (the first copy when a name repeats)."""
+    out: dict[str, str] = {}
+    for h in raw.frame.columns:
+        out.setdefault(parse_header(h).name, h)
+    return out
+
+
+def check_trials(raw: RawTable, known_catalysts: set[str]) -> Checked:
+    """Validate ``trials.csv`` against the v1 contract and the measurement registry.
+
+    ``known_catalysts`` is every catalyst id available to the trials: from this campaign's catalysts file and from
+    the database. Adds columns ``signal_scale`` and ``signal_shift`` (trace value in SI = value × scale + shift).
+    A trials table without data rows is a problem: there would be nothing to import.
+    """
+    checked = check_table(raw, TRIAL_COLUMNS)
+    frame, problems, label = checked.frame, checked.problems, raw.label
+    header_of = _headers(raw)
+    if frame.empty and not problems:
+        problems.append(Problem(label, None, None, "has a header but no data rows: there is no trial to import"))
+
+    def add(mask, column: str, message) -> None:
+        header = header_of.get(column, column)
+        for i in np.flatnonzero(np.asarray(mask, dtype=bool)):
+            text = message(frame.iloc[i]) if callable(message) else message
+            problems.append(Problem(label, int(i) + 2, header, text))
+
+    measurement = frame["measurement"]
+    unknown = measurement.notna() & ~measurement.isin(list(MEASUREMENTS))
+    add(unknown, "measurement", lambda row: f"'{row['measurement']}' is not one of {', '.join(MEASUREMENTS)}")
+    known = measurement.where(~unknown)
+    scale = np.full(len(frame), np.nan)
+    shift = np.full(len(frame), np.nan)
+    pairs = frame.loc[known.notna() & frame["signal_unit"].notna(), ["measurement", "signal_unit"]]
+    for (kind, unit), where in pairs.groupby(["measurement", "signal_unit"]).groups.items():
+        at = np.asarray(where)
+        try:
+            scale[at], shift[at], _ = si_converter(unit, MEASUREMENTS[kind].reference_unit)
+        except UnitProblem as exc:
+            add(frame.index.isin(at), "signal_unit", f"{exc} (measurement {kind})")
+    required = {c.name for c in TRIAL_COLUMNS if c.required}
+    for kind, entry in MEASUREMENTS.items():
+        for need in entry.needs:
+            if need not in required:  # an empty required cell is already reported
+                add((known == kind) & frame[need].isna(), need, f"required for a {kind} trial")
+    catalyst = frame["catalyst_id"]
+    add(catalyst.notna() & ~catalyst.isin(list(known_catalysts)), "catalyst_id",
+        lambda row: f"catalyst '{row['catalyst_id']}' is neither in the catalysts table nor in the database")
+    add(catalyst.notna() & frame["catalyst_mass"].isna(), "catalyst_mass", "a catalysed trial needs the catalyst mass")
+    add(catalyst.isna() & frame["catalyst_mass"].notna(), "catalyst_mass",
+        "a blank trial (no catalyst_id) has no catalyst mass: leave it empty, or give the catalyst_id")
+    _check_gas_over_water(frame, known, add)
+    for kind, entry in MEASUREMENTS.items():
+        for c in entry.conditions:
+            if c.stored and c.default is not None:
+                frame.loc[(frame["measurement"] == kind) & frame[c.column].isna(), c.column] = c.default
+    frame["signal_scale"] = scale
+    frame["signal_shift"] = shift
+    return checked
+
+
+def _check_gas_over_water(frame: pd.DataFrame, known: pd.Series, add) -> None:
+    """Gas collected over water needs liquid water at the gas temperature and a pressure above its vapour pressure.
+
+    .. math:: T_\\mathrm{tp} \\le T_\\mathrm{gas} \\le T_c, \\qquad p_\\mathrm{gas} > p_w(T_\\mathrm{gas})
+    """
+    wet = (known == "gas_volume") & frame["collected_over_water"].fillna(False).astype(bool)
+    gas_T = frame["gas_temperature"].fillna(_GAS_DEFAULTS["gas_temperature"])
+    liquid_water = (gas_T >= WATER_T_MIN) & (gas_T <= WATER_T_MAX)
+    add(wet & ~liquid_water, "gas_temperature",
+        lambda row: f"gas collected over water must be between 0.01 and 373.9 °C (read {_celsius(row)})")
+    # Over water the gas is saturated with vapour; at or below the vapour pressure no gas could be collected.
+    vapour = pd.Series(np.nan, index=frame.index)
+    vapour[wet & liquid_water] = water_vapour_pressure(gas_T[wet & liquid_water].to_numpy(float))
+    add(wet & (frame["gas_pressure"].fillna(_GAS_DEFAULTS["gas_pressure"]) <= vapour), "gas_pressure",
+        lambda row: f"{row['gas_pressure'] / 1e3:g} kPa is not above the water vapour pressure at {_celsius(row)} "
+                    f"({vapour[row.name] / 1e3:.3g} kPa), so no gas could be collected over water")
+
+
+def _celsius(row) -> str:
+    kelvin = row["gas_temperature"] if pd.notna(row["gas_temperature"]) else _GAS_DEFAULTS["gas_temperature"]
+    return f"{celsius(kelvin):g} °C"
+
+
+def trace_layout(source: TraceSource) -> tuple[dict[str, str], float, list[Problem], list[str]]:
+    """Map the trace headers to (trial_id, time, value) and give the time scale to seconds."""
+    found, problems, notes = map_headers(source.label, list(source.headers), TRACE_COLUMNS)
+    names = {name: at.header for name, at in found.items()}
+    time_scale = found["time"].scale if "time" in found else 1.0
+    return names, time_scale, problems, notes
