@@ -76,7 +76,9 @@ def test_chunking_and_order_do_not_matter(campaign):
     traces, _, df = campaign
     trial, t, amount, n_max = _long(traces)
     small = fit_traces(trial, t, amount, n_max, chunk_points=500)
-    pd.testing.assert_frame_equal(small, df, rtol=1e-9)
+    # fixed-plateau fits minimise the RSS itself (golden section), which places a flat minimum only to about
+    # sqrt(machine epsilon): chunk padding changes the summation order, so agreement is to 1e-7, not 1e-9
+    pd.testing.assert_frame_equal(small, df, rtol=1e-7)
     shuffle = np.random.default_rng(1).permutation(trial.size)
     shuffled = fit_traces(trial[shuffle], t[shuffle], amount[shuffle], n_max)
     assert (shuffled["model"] == df["model"]).all()

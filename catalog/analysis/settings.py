@@ -16,15 +16,15 @@ from dataclasses import asdict, dataclass
 SET_POINT_TOLERANCE = 0.5
 
 #: Version of the per-trial kinetic fit (models, selection, signal conversion).
-FIT_SCHEMA = 1
+FIT_SCHEMA = 2
 #: Version of everything derived from the fits (trial and catalyst figures, diagnostics, stored run layout).
-ANALYSIS_SCHEMA = 1
+ANALYSIS_SCHEMA = 2
 FIT_VERSION = f"fit-{FIT_SCHEMA}"
 
 TRIAL_FIT_COLUMNS = (
     "model", "r0", "r0_se", "k", "k_se", "k_unit", "half_life", "offset", "plateau", "plateau_se", "n_max",
     "plateau_ratio", "final_amount", "final_conversion", "r2", "rmse", "n_points", "late_residual_z", "runs_z",
-    "aic_zero", "aic_first", "aic_second",
+    "plateau_fixed", "model_weight", "leak_cut", "max_rate", "induction_z", "aic_zero", "aic_first", "aic_second",
 )
 
 

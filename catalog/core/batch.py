@@ -20,7 +20,7 @@ and the one nonlinear parameter is found without a per-trial loop:
   decoupled rising-line / plateau-mean optimum of every interval).
 
 Model choice, fallback and every derived field come from the same code as the reference
-(:func:`catalog.core.kinetics.summarise`), so the two paths differ only in how the minimum is found.
+(:func:`catalog.core.selection.summarise`), so the two paths differ only in how the minimum is found.
 """
 
 from __future__ import annotations
@@ -28,7 +28,9 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from catalog.core import trace_shape
 from catalog.core.kinetics import (
+    CHANGE_POINT_PENALTY,
     CODES,
     CURVATURE_GRID,
     CURVATURE_LINE,
@@ -36,18 +38,18 @@ from catalog.core.kinetics import (
     MODELS,
     SCALAR_FIELDS,
     ModelFit,
-    aic,
     check_models,
     covariance,
     curvature_basis,
     curve_theta,
-    embed_cov2,
+    embed_cov,
     linear_fit,
     model_eligible,
     normalise,
     shape,
-    summarise,
 )
+from catalog.core.plateau_fit import fit_full_batch
+from catalog.core.selection import summarise
 
 __all__ = ["COLUMNS", "curve_values", "fit_traces"]
 
@@ -61,23 +63,34 @@ def _rowsum(a, b=None):
     return a.sum(axis=1) if b is None else np.einsum("ij,ij->i", a, b)
 
 
-def _pack(alpha, rho, theta, rss, jtj, n, n_params, ok) -> ModelFit:
-    cov = covariance(jtj, rss / (n - n_params))
-    if jtj.shape[-1] == 2:
-        cov = embed_cov2(cov)
+def _pack(alpha, rho, theta, rss, jtj, n, free, ok, n_penalty=None) -> ModelFit:
+    """ModelFit from the (m, 3, 3) J^T J over (alpha, rho, theta), keeping the ``free`` parameters."""
+    free = np.asarray(free, bool)
+    p = int(free.sum())
+    cov = embed_cov(covariance(jtj[:, free][:, :, free], rss / (n - p)), free)
     ok = ok & np.isfinite(cov[:, 1, 1]) & np.isfinite(rho) & np.isfinite(rss)
-    return ModelFit(alpha, rho, theta, rss, cov, np.full(n.shape, float(n_params)), ok)
+    return ModelFit(alpha, rho, theta, rss, cov, np.full(n.shape, float(p)),
+                    np.full(n.shape, float(p if n_penalty is None else n_penalty)), ok)
 
 
-def _fit_line_at(g, Y, W, n):
+def _jtj(n, sg, sgg, sd, sgd, sdd, rho):
+    """J^T J of the columns (1, g, rho g') from their sums."""
+    return np.stack([np.stack([n, sg, rho * sd], -1), np.stack([sg, sgg, rho * sgd], -1),
+                     np.stack([rho * sd, rho * sgd, rho * rho * sdd], -1)], -2)
+
+
+def _fit_line_at(g, Y, W, n, offset=True):
     """Closed-form y = alpha + rho g per row; residual sum of squares from the residuals themselves."""
     sg, sgg, sy, sgy = _rowsum(g), _rowsum(g, g), _rowsum(Y), _rowsum(g, Y)
-    alpha, rho, _ = linear_fit(n, sg, sgg, sy, sgy)
+    alpha, rho, det = linear_fit(n, sg, sgg, sy, sgy, offset)
     R = np.where(W, Y - alpha[:, None] - rho[:, None] * g, 0.0)
-    return alpha, rho, _rowsum(R, R), sg, sgg
+    rss = _rowsum(R, R)
+    # A singular design (g constant over the readings, e.g. a late first reading at a huge curvature) has no fit.
+    good = (det > 1e-13 * np.maximum(n * sgg, 1e-300)) & np.isfinite(rss) & (rss >= 0)
+    return alpha, rho, np.where(good, rss, np.inf), sg, sgg
 
 
-def _fit_zero(U, Y, W, n, eligible) -> ModelFit:
+def _fit_zero(U, Y, W, n, eligible, offset=True) -> dict:
     m, L = U.shape
     j = np.arange(L)[None, :]
     nn = n[:, None]
@@ -87,11 +100,11 @@ def _fit_zero(U, Y, W, n, eligible) -> ModelFit:
     # tau on data time u_j: g = u before, u_j after
     after = nn - S1
     sg, sgg, sgy = Su + U * after, Suu + U * U * after, Suy + U * (Ty - Sy)
-    a_f, r_f, det_f = linear_fit(nn, sg, sgg, Ty, sgy)
+    a_f, r_f, det_f = linear_fit(nn, sg, sgg, Ty, sgy, offset)
     rss_f = Tyy - a_f * Ty - r_f * sgy
     ok_f = (j >= 2) & (j <= nn - 2) & (det_f > 0)
     # tau inside (u_j, u_{j+1}): rising line on points 0..j and the plateau mean of the rest decouple
-    a_r, r_r, _ = linear_fit(S1, Su, Suu, Sy, Suy)
+    a_r, r_r, _ = linear_fit(S1, Su, Suu, Sy, Suy, offset)
     n_p = nn - S1
     beta = (Ty - Sy) / np.where(n_p > 0, n_p, 1.0)
     rss_i = (Syy - a_r * Sy - r_r * Suy) + ((Tyy - Syy) - beta * (Ty - Sy))
@@ -106,55 +119,59 @@ def _fit_zero(U, Y, W, n, eligible) -> ModelFit:
     tau = np.where(has_break, taus, np.inf)
 
     g = np.where(W, np.minimum(U, tau[:, None]), 0.0)
-    a_b, r_b, rss_b, sg_b, sgg_b = _fit_line_at(g, Y, W, n)
+    a_b, r_b, rss_b, sg_b, sgg_b = _fit_line_at(g, Y, W, n, offset)
     h = (W & (U > tau[:, None])).astype(float)
-    sh, sgh = _rowsum(h), _rowsum(g, h)
-    jtj = np.stack([np.stack([n, sg_b, r_b * sh], -1), np.stack([sg_b, sgg_b, r_b * sgh], -1),
-                    np.stack([r_b * sh, r_b * sgh, r_b * r_b * sh], -1)], -2)
-    broken = _pack(a_b, r_b, tau, rss_b, jtj, n, 3, eligible & has_break)
-
-    a_l, r_l, rss_l, su, suu = _fit_line_at(U, Y, W, n)
-    jtj = np.stack([np.stack([n, su], -1), np.stack([su, suu], -1)], -2)
-    line = _pack(a_l, r_l, np.full(m, np.inf), rss_l, jtj, n, 2, eligible)
-    use_broken = broken.ok & (aic(broken.rss, n, 3) < aic(line.rss, n, 2))
-    return ModelFit(*(np.where(use_broken.reshape((m,) + (1,) * (getattr(line, f).ndim - 1)),
-                               getattr(broken, f), getattr(line, f)) for f in ModelFit.__dataclass_fields__))
+    jtj = _jtj(n, sg_b, sgg_b, _rowsum(h), _rowsum(g, h), _rowsum(h), r_b)
+    free = np.array([offset, True, True])
+    broken = _pack(a_b, r_b, tau, rss_b, jtj, n, free, eligible & has_break,
+                   n_penalty=free.sum() - 1 + CHANGE_POINT_PENALTY)
+    a_l, r_l, rss_l, su, suu = _fit_line_at(U, Y, W, n, offset)
+    z = np.zeros(m)
+    line = _pack(a_l, r_l, np.full(m, np.inf), rss_l, _jtj(n, su, suu, z, z, z, r_l), n,
+                 np.array([offset, True, False]), eligible)
+    return {"zero": line, "zero_break": broken}
 
 
-def _profile(model, kappa, U, Y, n, sy):
-    """Linear parameters, residuals, phi = dRSS/dkappa, phi' and the Jacobian sums at per-row kappa."""
+def _profile(model, kappa, U, Y, n, sy, offset=True):
+    """Linear parameters, residuals, phi = dRSS/dkappa, phi' and the Jacobian sums at per-row kappa.
+
+    Without the offset alpha = alpha' = 0 and the normal equation is the rho row alone: rho' = (g'^T r - rho
+    g^T g') / g^T g.
+    """
     g, d, e = curvature_basis(model, kappa[:, None], U, 2)
     sg, sgg, sd, sgd, sdd = _rowsum(g), _rowsum(g, g), _rowsum(d), _rowsum(g, d), _rowsum(d, d)
-    alpha, rho, det = linear_fit(n, sg, sgg, sy, _rowsum(g, Y))
+    alpha, rho, det = linear_fit(n, sg, sgg, sy, _rowsum(g, Y), offset)
     dr = _rowsum(d, Y) - alpha * sd - rho * sgd  # g'^T r
     er = _rowsum(e, Y) - alpha * _rowsum(e) - rho * _rowsum(g, e)  # g''^T r
     b1, b2 = -rho * sd, dr - rho * sgd
-    a_p = (sgg * b1 - sg * b2) / det
-    r_p = (n * b2 - sg * b1) / det
+    if offset:
+        a_p = (sgg * b1 - sg * b2) / det
+        r_p = (n * b2 - sg * b1) / det
+    else:
+        a_p, r_p = 0.0 * b2, b2 / sgg
     d_rp = -a_p * sd - r_p * sgd - rho * sdd  # g'^T r'
     phi = -2 * rho * dr
     dphi = -2 * (r_p * dr + rho * er + rho * d_rp)
     return alpha, rho, phi, dphi, g, d
 
 
-def _fit_curved(model, U, Y, W, n, eligible) -> ModelFit:
+def _fit_curved(model, U, Y, W, n, eligible, offset=True) -> ModelFit:
     m = U.shape[0]
-    sy, syy = _rowsum(Y), _rowsum(Y, Y)
+    sy = _rowsum(Y)
     grid = np.empty((m, CURVATURE_GRID.size))
     for q, kappa in enumerate(CURVATURE_GRID):
-        g = curvature_basis(model, kappa, U)[0]
-        sgy = _rowsum(g, Y)
-        alpha, rho, _ = linear_fit(n, _rowsum(g), _rowsum(g, g), sy, sgy)
-        grid[:, q] = syy - alpha * sy - rho * sgy
+        # RSS from the residuals, never from syy - alpha sy - rho sgy: that difference cancels to a negative (or,
+        # with a singular design, -inf) value, which argmin would take as the best fit.
+        grid[:, q] = _fit_line_at(curvature_basis(model, kappa, U)[0], Y, W, n, offset)[2]
     i = np.argmin(np.where(np.isnan(grid), np.inf, grid), axis=1)
     last = CURVATURE_GRID.size - 1
     x = CURVATURE_GRID[i]
-    _, _, phi, dphi, _, _ = _profile(model, x, U, Y, n, sy)
+    _, _, phi, dphi, _, _ = _profile(model, x, U, Y, n, sy, offset)
     # the minimum lies on the downhill side of the best grid point
     right = phi < 0
     lo = np.where(right, x, CURVATURE_GRID[np.maximum(i - 1, 0)])
     hi = np.where(right, CURVATURE_GRID[np.minimum(i + 1, last)], x)
-    done = ((i == 0) & ~right) | ((i == last) & right) | (phi == 0) | ~eligible
+    done = ((i == 0) & ~right) | ((i == last) & right) | (phi == 0) | ~eligible | ~np.isfinite(grid.min(axis=1))
     at_bound = (i == last) & right
     for _ in range(_NEWTON_STEPS):
         act = np.flatnonzero(~done)
@@ -166,25 +183,35 @@ def _fit_curved(model, U, Y, W, n, eligible) -> ModelFit:
         xn = np.where(good, newton, 0.5 * (la + ha))
         done[act] = np.abs(xn - xa) <= 1e-12 * xa + 1e-15
         x[act] = xn
-        _, _, phi[act], dphi[act], _, _ = _profile(model, xn, U[act], Y[act], n[act], sy[act])
+        _, _, phi[act], dphi[act], _, _ = _profile(model, xn, U[act], Y[act], n[act], sy[act], offset)
         lo[act] = np.where(phi[act] < 0, xn, la)
         hi[act] = np.where(phi[act] < 0, ha, xn)
     x = np.where(x < CURVATURE_LINE, 0.0, x)
     g, d = curvature_basis(model, x[:, None], U, 1)
-    alpha, rho, rss, sg, sgg = _fit_line_at(g, Y, W, n)
-    sd, sgd, sdd = _rowsum(d), _rowsum(g, d), _rowsum(d, d)
-    jtj = np.stack([np.stack([n, sg, rho * sd], -1), np.stack([sg, sgg, rho * sgd], -1),
-                    np.stack([rho * sd, rho * sgd, rho * rho * sdd], -1)], -2)
-    return _pack(alpha, rho, x, rss, jtj, n, 3, eligible & ~at_bound & (x < CURVATURE_MAX * (1 - 1e-9)))
+    g, d = np.where(W, g, 0.0), np.where(W, d, 0.0)
+    alpha, rho, rss, sg, sgg = _fit_line_at(g, Y, W, n, offset)
+    jtj = _jtj(n, sg, sgg, _rowsum(d), _rowsum(g, d), _rowsum(d, d), rho)
+    ok = eligible & ~at_bound & (x < CURVATURE_MAX * (1 - 1e-9)) & np.isfinite(rss)
+    return _pack(alpha, rho, x, rss, jtj, n, np.array([offset, True, True]), ok)
 
 
-def _fit_chunk(T, Yr, W, n_max, models) -> dict:
-    U, Y, c, s, tmax = normalise(T, Yr, W)
+def _fit_chunk(T, Yr, W, n_max, models, offset=True) -> dict:
+    W, cut = trace_shape.leak_cut(T, Yr, W)
+    max_rate, induction_z = trace_shape.induction(T, Yr, W)
+    U, Y, c, s, tmax = normalise(T, Yr, W, offset)
     n = W.sum(axis=1).astype(float)
     eligible = model_eligible(U, W, n, tmax)
-    fits = {mo: (_fit_zero(U, Y, W, n, eligible) if mo == "zero" else _fit_curved(mo, U, Y, W, n, eligible))
-            for mo in models}
-    return summarise(U, Y, W, c, s, tmax, fits, models, n_max)
+    fits = {}
+    for mo in models:
+        if mo == "zero":
+            fits |= _fit_zero(U, Y, W, n, eligible, offset)
+            continue
+        fits[mo] = _fit_curved(mo, U, Y, W, n, eligible, offset)
+        known = np.isfinite(n_max) & (n_max > 0)
+        if known.any():
+            fits[f"{mo}_full"] = fit_full_batch(mo, U, Y, W, n, n_max / s, offset, eligible & known)
+    out = summarise(U, Y, W, c, s, tmax, fits, models, n_max, offset)
+    return out | {"leak_cut": cut, "max_rate": max_rate, "induction_z": induction_z}
 
 
 def _long_form(trial_index, t, amount, n_max):
@@ -199,7 +226,8 @@ def _long_form(trial_index, t, amount, n_max):
     return trial.astype(np.int64), t, y, n_max
 
 
-def fit_traces(trial_index, t, amount, n_max, models=MODELS, chunk_points: int = CHUNK_POINTS) -> pd.DataFrame:
+def fit_traces(trial_index, t, amount, n_max, models=MODELS, chunk_points: int = CHUNK_POINTS,
+               offset: bool = True) -> pd.DataFrame:
     """Fit every trial's trace at once; one row per trial code 0..m-1 with the fields of ``TraceFit``.
 
     Parameters
@@ -210,6 +238,7 @@ def fit_traces(trial_index, t, amount, n_max, models=MODELS, chunk_points: int =
     n_max : array of length m, stoichiometric maximum product amount per trial, mol (NaN if unknown).
     models : subset of ('zero', 'first', 'second') to try.
     chunk_points : padded elements (trials x longest trace) fitted at once; bounds the memory.
+    offset : fit the start offset (default); False forces every curve through the origin.
 
     Returns
     -------
@@ -239,10 +268,10 @@ def fit_traces(trial_index, t, amount, n_max, models=MODELS, chunk_points: int =
             col = np.arange(p0, p1) - starts[trial[p0:p1]]
             T, Yr, W = np.zeros((hi - lo, L)), np.zeros((hi - lo, L)), np.zeros((hi - lo, L), dtype=bool)
             T[row, col], Yr[row, col], W[row, col] = t[p0:p1], y[p0:p1], True
-            parts.append(_fit_chunk(T, Yr, W, n_max[lo:hi], models))
+            parts.append(_fit_chunk(T, Yr, W, n_max[lo:hi], models, offset))
     columns = {name: np.concatenate([p[name] for p in parts]) if parts else np.array([]) for name in COLUMNS}
     df = pd.DataFrame(columns, index=pd.RangeIndex(m, name="trial"))
-    return df.astype({"model": str, "k_unit": str, "n_points": np.int64})
+    return df.astype({"model": str, "k_unit": str, "n_points": np.int64, "leak_cut": np.int64, "plateau_fixed": bool})
 
 
 def curve_values(fits_df: pd.DataFrame, trial_index, t) -> np.ndarray:

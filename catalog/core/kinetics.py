@@ -53,9 +53,6 @@ NAMES = np.array(["zero", "first", "second", "initial_slope", "none"], dtype=obj
 K_UNITS = np.array(["mol/s", "1/s", "1/(mol*s)", "", ""], dtype=object)
 
 MIN_MODEL_POINTS = 5  # three parameters and at least two residual degrees of freedom
-MIN_SLOPE_POINTS = 3
-SLOPE_WINDOW_FRACTION = 0.2  # fallback window: up to the first point past 20 % of the rise ...
-SLOPE_WINDOW_MIN_POINTS = 4  # ... and never fewer than this many points
 #: dimensionless curvature kappa = k t_max (first) or b t_max (second): zero, then 4 points a decade to 1e3
 CURVATURE_GRID = np.concatenate(([0.0], np.geomspace(1e-2, 1e3, 21)))
 CURVATURE_MAX = float(CURVATURE_GRID[-1])
@@ -63,6 +60,8 @@ CURVATURE_MAX = float(CURVATURE_GRID[-1])
 CURVATURE_LINE = 1e-8
 #: RSS floor per point in normalised units: a fit closer than 1e-12 of the trace's range counts as exact
 RSS_FLOOR = 1e-24
+#: What the selection criterion charges for the breakpoint of the broken zero-order line (see catalog.core.selection)
+CHANGE_POINT_PENALTY = 3
 _RCOND = 1e-12
 _SERIES_BELOW = 1e-2
 # phi1(x) = (1 - exp(-x))/x = sum (-x)^n/(n+1)!; eight terms are exact to rounding for x < 1e-2
@@ -99,6 +98,12 @@ class TraceFit:
         s/sqrt(n_late); negative when the trace falls below the model late (deactivation).
     runs_z : Wald-Wolfowitz runs-test z of the residual signs (zero counts as positive); strongly negative means
         long runs, i.e. systematic misfit.
+    plateau_fixed : the chosen fit holds the plateau at n_max (first or second order).
+    model_weight : Akaike weight of the chosen fit among the candidates (1 = no competitor).
+    leak_cut : readings after the trace's maximum that were left out because the product fell (a leak or drift:
+        product cannot decrease); 0 when none.
+    max_rate, induction_z : largest local slope of the trace, mol/s, and its excess over the first window's slope
+        in standard errors (large when the trace starts slowly: an induction period).
     """
 
     model: str
@@ -121,6 +126,11 @@ class TraceFit:
     n_points: int
     late_residual_z: float
     runs_z: float
+    plateau_fixed: bool
+    model_weight: float
+    leak_cut: int
+    max_rate: float
+    induction_z: float
 
 
 SCALAR_FIELDS = tuple(f for f in TraceFit.__dataclass_fields__ if f != "aic")
@@ -131,7 +141,9 @@ class ModelFit:
     """One model fitted to m trials in normalised units (u = t/t_max, y = (P - c)/s); arrays of length m.
 
     ``theta`` is the curvature: tau in units of t_max for zero order (inf for the straight line), kappa for first
-    and second order. ``cov`` (m, 3, 3) is the covariance of (alpha, rho, theta); ``n_params`` is 2 or 3.
+    and second order. ``cov`` (m, 3, 3) is the covariance of (alpha, rho, theta), zero in the rows of parameters
+    held fixed; ``n_params`` counts the fitted parameters (residual dof = n - n_params) and ``n_penalty`` what the
+    selection criterion charges for them (a change point counts more than one ordinary parameter).
     """
 
     alpha: np.ndarray
@@ -140,6 +152,7 @@ class ModelFit:
     rss: np.ndarray
     cov: np.ndarray
     n_params: np.ndarray
+    n_penalty: np.ndarray
     ok: np.ndarray
 
 
@@ -213,33 +226,33 @@ def covariance(jtj, s2) -> np.ndarray:
     return cov
 
 
-def embed_cov2(cov2) -> np.ndarray:
-    """(m, 2, 2) covariance of (alpha, rho) as (m, 3, 3) with a zero curvature row and column."""
-    cov = np.zeros((cov2.shape[0], 3, 3))
-    cov[:, :2, :2] = cov2
+def embed_cov(cov_sub, free) -> np.ndarray:
+    """(m, q, q) covariance of the free parameters among (alpha, rho, theta) as (m, 3, 3), zero where fixed."""
+    free = np.flatnonzero(np.asarray(free, bool))
+    cov = np.zeros((cov_sub.shape[0], 3, 3))
+    cov[:, free[:, None], free[None, :]] = cov_sub
     return cov
 
 
-def linear_fit(n, sg, sgg, sy, sgy):
-    """Closed-form least squares y = alpha + rho g from sums; returns alpha, rho, det."""
+def linear_fit(n, sg, sgg, sy, sgy, offset: bool = True):
+    """Closed-form least squares y = alpha + rho g from sums (alpha = 0 without offset); returns alpha, rho, det.
+
+    ``det`` is n Sgg - Sg^2 with an offset and Sgg without; the fit is defined where det > 0.
+    """
+    if not offset:
+        return np.zeros_like(np.asarray(sgg, dtype=float)), sgy / sgg, np.asarray(sgg, dtype=float)
     det = n * sgg - sg * sg
     rho = (n * sgy - sg * sy) / det
     alpha = (sy - rho * sg) / np.where(n > 0, n, 1.0)
     return alpha, rho, det
 
 
-def aic(rss, n, n_params, scale=1.0) -> np.ndarray:
-    """Gaussian AIC = n ln(RSS/n) + 2p with RSS floored at n * RSS_FLOOR (normalised) and reported in scale^2."""
-    n = np.asarray(n, dtype=float)
-    rss = np.maximum(np.asarray(rss, dtype=float), n * RSS_FLOOR)
-    return n * (np.log(rss / n) + 2.0 * np.log(scale)) + 2.0 * np.asarray(n_params, dtype=float)
-
-
-def normalise(T, Y, W):
+def normalise(T, Y, W, offset: bool = True):
     """Scale padded traces to u = t/t_max in [0, 1] and y = (P - c)/s of unit range, zero at padding.
 
-    Returns U, Yn, c, s, t_max (c, s in the units of Y; s = 1 for a constant trace). Dividing by max|P| first keeps
-    the range finite for any finite input.
+    Returns U, Yn, c, s, t_max (c, s in the units of Y; s = 1 for a constant trace; c = 0 without an offset term,
+    so the model still passes through the origin). Dividing by max|P| first keeps the range finite for any finite
+    input.
     """
     n = W.sum(axis=1)
     tmax = np.max(np.where(W, T, 0.0), axis=1, initial=0.0)
@@ -247,7 +260,7 @@ def normalise(T, Y, W):
     big = np.max(np.where(W, np.abs(Y), 0.0), axis=1, initial=0.0)
     big = np.where(big > 0, big, 1.0)
     X = np.where(W, Y / big[:, None], 0.0)
-    c = X.sum(axis=1) / np.maximum(n, 1)
+    c = X.sum(axis=1) / np.maximum(n, 1) if offset else np.zeros(len(n))
     s = np.max(np.where(W, X, -np.inf), axis=1, initial=-np.inf) - np.min(np.where(W, X, np.inf), axis=1, initial=np.inf)
     s = np.where(np.isfinite(s) & (s > 0), s, 1.0)
     Yn = np.where(W, (X - c[:, None]) / s[:, None], 0.0)
@@ -260,220 +273,96 @@ def model_eligible(U, W, n, tmax) -> np.ndarray:
     return (n >= MIN_MODEL_POINTS) & (distinct >= 3) & (tmax > 0)
 
 
-def _initial_slope(U, Y, W, n):
-    """Straight line over the early window: points up to the first one past 20 % of the rise, at least 4.
-
-    Returns a ModelFit (theta NaN), the window's total sum of squares and its size.
-    """
-    m, L = U.shape
-    pos = np.arange(L)[None, :]
-    y0 = Y[:, 0]
-    rise = np.max(np.where(W, Y, -np.inf), axis=1) - y0
-    reached = W & (Y - y0[:, None] >= SLOPE_WINDOW_FRACTION * rise[:, None]) & (rise > 0)[:, None]
-    first = np.where(reached.any(axis=1), np.argmax(reached, axis=1), L)
-    nw = np.minimum(np.maximum(first + 1, SLOPE_WINDOW_MIN_POINTS), n)
-    Ww = W & (pos < nw[:, None])
-    Uw, Yw = np.where(Ww, U, 0.0), np.where(Ww, Y, 0.0)
-    nwf = nw.astype(float)
-    su, suu, sy, suy = Uw.sum(1), (Uw * Uw).sum(1), Yw.sum(1), (Uw * Yw).sum(1)
-    alpha, rho, det = linear_fit(nwf, su, suu, sy, suy)
-    R = np.where(Ww, Yw - alpha[:, None] - rho[:, None] * Uw, 0.0)
-    rss = (R * R).sum(1)
-    tss = np.where(Ww, Yw - (sy / np.maximum(nwf, 1))[:, None], 0.0)
-    tss = (tss * tss).sum(1)
-    jtj = np.stack([np.stack([nwf, su], -1), np.stack([su, suu], -1)], -2)
-    dof = nwf - 2
-    cov = embed_cov2(covariance(jtj, rss / np.where(dof > 0, dof, np.nan)))
-    ok = (nw >= MIN_SLOPE_POINTS) & (det > 0) & np.isfinite(cov[:, 1, 1]) & np.isfinite(alpha) & np.isfinite(rho)
-    fit = ModelFit(alpha, rho, np.full(m, np.nan), rss, cov, np.full(m, 2.0), ok)
-    return fit, tss, nw
-
-
-def _residual_diagnostics(R, W, n, dof, rss):
-    """Late-residual z and runs-test z of padded residual rows."""
-    m, L = R.shape
-    pos = np.arange(L)[None, :]
-    n_late = np.ceil(n / 3.0)
-    late = W & (pos >= (n - n_late)[:, None])
-    sd = np.sqrt(rss / dof)
-    late_z = np.where(late, R, 0.0).sum(1) / n_late / (sd / np.sqrt(n_late))
-    plus = R >= 0
-    runs = 1 + ((plus[:, 1:] != plus[:, :-1]) & W[:, 1:]).sum(1)
-    n1 = (plus & W).sum(1).astype(float)
-    n2 = n - n1
-    mean = 2 * n1 * n2 / n + 1
-    var = 2 * n1 * n2 * (2 * n1 * n2 - n) / (n * n * (n - 1))
-    runs_z = (runs - mean) / np.sqrt(np.where(var > 0, var, np.nan))
-    return late_z, runs_z
-
-
-def summarise(U, Y, W, c, s, tmax, fits: dict, models, n_max) -> dict:
-    """Choose a model per trial by AIC, fall back to the initial slope, and derive every reported field.
-
-    ``fits`` maps each tried model to its :class:`ModelFit`. Returns column name -> array of length m (the scalar
-    TraceFit fields plus aic_zero, aic_first, aic_second).
-    """
-    m, L = U.shape
-    n = W.sum(axis=1)
-    nf = n.astype(float)
-    out = {}
-    table = np.full((m, len(MODELS)), np.nan)
-    for i, model in enumerate(MODELS):
-        if model in fits:
-            f = fits[model]
-            table[:, i] = np.where(f.ok, aic(f.rss, nf, f.n_params, s), np.nan)
-        out[f"aic_{model}"] = table[:, i]
-    # ties go to the first model in the order asked for
-    order = [MODELS.index(mo) for mo in models]
-    ranked = np.where(np.isnan(table[:, order]), np.inf, table[:, order])
-    has_model = np.isfinite(ranked).any(axis=1)
-    best = np.array(order)[np.argmin(ranked, axis=1)]
-
-    slope, slope_tss, nw = _initial_slope(U, Y, W, n)
-    code = np.where(has_model, best, np.where(slope.ok, CODES["initial_slope"], CODES["none"]))
-
-    def pick(attr):
-        stack = [getattr(fits[mo], attr) if mo in fits else np.full_like(getattr(slope, attr), np.nan)
-                 for mo in MODELS] + [getattr(slope, attr)]
-        idx = np.minimum(code, 3)
-        return np.stack(stack)[idx, np.arange(m)]
-
-    alpha, rho, theta, rss = pick("alpha"), pick("rho"), pick("theta"), pick("rss")
-    cov, n_params = pick("cov"), pick("n_params").astype(float)
-    is_model = code <= 2
-    is_slope = code == CODES["initial_slope"]
-    none = code == CODES["none"]
-
-    R = np.where(W, Y - alpha[:, None] - rho[:, None] * shape(code[:, None], U, theta[:, None]), 0.0)
-    tss = np.where(W, Y - (Y.sum(1) / np.maximum(nf, 1))[:, None], 0.0)
-    tss = (tss * tss).sum(1)
-    dof = nf - n_params
-    late_z, runs_z = _residual_diagnostics(R, W, nf, np.where(dof > 0, dof, np.nan), rss)
-    used_n = np.where(is_slope, nw, nf)
-    used_tss = np.where(is_slope, slope_tss, tss)
-
-    zero, first, second = code == 0, code == 1, code == 2
-    reached = (zero & np.isfinite(theta)) | ((first | second) & (theta > 0))
-    th = np.where(reached, theta, np.nan)
-    r0 = s * rho / tmax
-    plateau = np.where(zero, s * rho * th, s * rho / th)
-    grad = np.where(zero[:, None], np.stack([0 * th, th, rho], -1), np.stack([0 * th, 1 / th, -rho / th**2], -1))
-    plateau_se = s * np.sqrt(np.einsum("mi,mij,mj->m", grad, cov, grad))
-    k2 = th**2 / (rho * s * tmax)
-    k2_grad = np.stack([0 * th, -k2 / rho, 2 * k2 / th], -1)
-    k2_se = np.sqrt(np.einsum("mi,mij,mj->m", k2_grad, cov, k2_grad))
-    r0_se = s * np.sqrt(cov[:, 1, 1]) / tmax
-    u_last = U[np.arange(m), np.maximum(n - 1, 0)]
-    y_last = Y[np.arange(m), np.maximum(n - 1, 0)]
-    final = np.where(is_slope, s * (y_last - alpha), s * rho * shape(code, u_last, theta))
-
-    out["model"] = NAMES[code]
-    out["r0"] = r0
-    out["r0_se"] = r0_se
-    out["k"] = np.select([zero, first, second], [r0, theta / tmax, k2], np.nan)
-    out["k_se"] = np.select([zero, first, second], [r0_se, np.sqrt(cov[:, 2, 2]) / tmax, k2_se], np.nan)
-    out["k_unit"] = K_UNITS[code]
-    out["half_life"] = np.select([zero, first, second], [th * tmax / 2, math.log(2) * tmax / th, tmax / th], np.nan)
-    out["offset"] = c + s * alpha
-    out["plateau"] = np.where(reached, plateau, np.nan)
-    out["plateau_se"] = np.where(reached, plateau_se, np.nan)
-    n_max = np.asarray(n_max, dtype=float)
-    per_max = np.where(n_max > 0, n_max, np.nan)
-    out["n_max"] = n_max
-    out["plateau_ratio"] = out["plateau"] / per_max
-    out["final_amount"] = final
-    out["final_conversion"] = final / per_max
-    out["r2"] = np.where(used_tss > 0, 1 - rss / used_tss, np.nan)
-    out["rmse"] = s * np.sqrt(rss / np.maximum(used_n, 1))
-    out["n_points"] = n
-    out["late_residual_z"] = np.where(is_model, late_z, np.nan)
-    out["runs_z"] = np.where(is_model, runs_z, np.nan)
-    for name in SCALAR_FIELDS:
-        if name in ("model", "k_unit", "n_points", "n_max"):
-            continue
-        out[name] = np.where(none, np.nan, out[name])
-    return out
-
-
 # ---------------------------------------------------------------------------------------------------------------
 # The reference fitting cores: one trial, plain loops and scipy
 
 
-def _lstsq(g, y):
-    """Least squares y = alpha + rho g; returns alpha, rho, rss (residuals summed directly)."""
-    A = np.column_stack((np.ones_like(g), g))
-    (alpha, rho), *_ = np.linalg.lstsq(A, y, rcond=None)
+def _lstsq(g, y, offset=True):
+    """Least squares y = alpha + rho g (alpha = 0 without offset); returns alpha, rho, rss (from the residuals)."""
+    A = np.column_stack((np.ones_like(g), g)) if offset else g[:, None]
+    coef, *_ = np.linalg.lstsq(A, y, rcond=None)
+    alpha, rho = (coef[0], coef[1]) if offset else (0.0, coef[0])
     r = y - alpha - rho * g
-    return alpha, rho, float(r @ r)
+    sgg = float(g @ g)
+    det = len(g) * sgg - float(g.sum()) ** 2 if offset else sgg
+    # the same singular-design rule as catalog.core.batch: g constant over the readings has no fit
+    good = det > 1e-13 * max(len(g) * sgg, 1e-300)
+    return alpha, rho, float(r @ r) if good else np.inf
 
 
-def _finish_fit(alpha, rho, theta, rss, jac, n_params, ok):
-    """Pack one trial's fit with its Jacobian covariance (dof = n - n_params)."""
+def _finish_fit(alpha, rho, theta, rss, jac, free, ok, n_penalty=None):
+    """Pack one trial's fit with its Jacobian covariance over the ``free`` columns of (alpha, rho, theta)."""
     n = jac.shape[0]
-    cols = jac if n_params == 3 else jac[:, :2]
-    cov = covariance((cols.T @ cols)[None], np.array([rss / (n - n_params)]))
-    if n_params == 2:
-        cov = embed_cov2(cov)
+    free = np.asarray(free, bool)
+    p = int(free.sum())
+    cols = jac[:, free]
+    cov = embed_cov(covariance((cols.T @ cols)[None], np.array([rss / (n - p)])), free)
     ok = bool(ok and np.isfinite(cov[0, 1, 1]) and np.isfinite(rho) and np.isfinite(rss))
-    return ModelFit(*(np.array([v]) for v in (alpha, rho, theta, rss)), cov, np.array([float(n_params)]), np.array([ok]))
+    return ModelFit(*(np.array([v]) for v in (alpha, rho, theta, rss)), cov, np.array([float(p)]),
+                    np.array([float(p if n_penalty is None else n_penalty)]), np.array([ok]))
 
 
-def _fit_zero(u, y) -> ModelFit:
-    """Exact zero-order fit: straight line, or broken line with tau in [u_2, u_{n-2}] (Hudson's enumeration)."""
+def _fit_zero(u, y, offset=True) -> dict:
+    """Exact zero-order fits: the straight line, and the broken line with tau in [u_2, u_{n-2}] (Hudson's
+    enumeration); both are returned as candidates ('zero', 'zero_break')."""
     n = len(u)
     best_rss, best_tau = np.inf, np.nan
     for j in range(2, n - 1):  # tau on a data time
-        _, _, rss = _lstsq(np.minimum(u, u[j]), y)
+        _, _, rss = _lstsq(np.minimum(u, u[j]), y, offset)
         if rss < best_rss:
             best_rss, best_tau = rss, u[j]
     for j in range(2, n - 2):  # tau strictly inside (u_j, u_{j+1}): rising line and plateau mean decouple
         if u[j] == u[0]:  # all rising points at one time: no line through them
             continue
-        a_r, r_r, rss_r = _lstsq(u[: j + 1], y[: j + 1])
+        a_r, r_r, rss_r = _lstsq(u[: j + 1], y[: j + 1], offset)
         plateau = y[j + 1 :]
         rss = rss_r + float(((plateau - plateau.mean()) ** 2).sum())
         if r_r != 0 and u[j] <= (plateau.mean() - a_r) / r_r <= u[j + 1] and rss < best_rss:
             best_rss, best_tau = rss, (plateau.mean() - a_r) / r_r
-    a_l, r_l, rss_l = _lstsq(u, y)
-    line = _finish_fit(a_l, r_l, np.inf, rss_l, np.column_stack((np.ones(n), u, np.zeros(n))), 2, True)
-    if not np.isfinite(best_tau):
-        return line
-    g = np.minimum(u, best_tau)
-    a_b, r_b, rss_b = _lstsq(g, y)
-    broken = _finish_fit(a_b, r_b, best_tau, rss_b, np.column_stack((np.ones(n), g, r_b * (u > best_tau))), 3, True)
-    if broken.ok[0] and aic(rss_b, n, 3) < aic(rss_l, n, 2):
-        return broken
-    return line
+    a_l, r_l, rss_l = _lstsq(u, y, offset)
+    free = np.array([offset, True, False])
+    out = {"zero": _finish_fit(a_l, r_l, np.inf, rss_l, np.column_stack((np.ones(n), u, np.zeros(n))), free, True)}
+    if np.isfinite(best_tau):
+        g = np.minimum(u, best_tau)
+        a_b, r_b, rss_b = _lstsq(g, y, offset)
+        free = np.array([offset, True, True])
+        out["zero_break"] = _finish_fit(a_b, r_b, best_tau, rss_b, np.column_stack((np.ones(n), g, r_b * (u > best_tau))),
+                                        free, True, n_penalty=free.sum() - 1 + CHANGE_POINT_PENALTY)
+    return out
 
 
-def _fit_curved(model: str, u, y) -> ModelFit:
+def _fit_curved(model: str, u, y, offset=True) -> ModelFit:
     """First- or second-order fit: profile grid over kappa, then least_squares in the best grid point's cells."""
     n = len(u)
-    grid = [_lstsq(curvature_basis(model, kappa, u)[0], y) for kappa in CURVATURE_GRID]
+    grid = [_lstsq(curvature_basis(model, kappa, u)[0], y, offset) for kappa in CURVATURE_GRID]
     i = int(np.argmin([g[2] for g in grid]))
     lo, hi = CURVATURE_GRID[max(i - 1, 0)], CURVATURE_GRID[min(i + 1, len(CURVATURE_GRID) - 1)]
+    free = np.array([offset, True, True])
 
     def residuals(p):
+        p = np.r_[0.0, p] if not offset else p
         return p[0] + p[1] * curvature_basis(model, p[2], u)[0] - y
 
     def jacobian(p):
+        p = np.r_[0.0, p] if not offset else p
         g, d = curvature_basis(model, p[2], u, 1)
-        return np.column_stack((np.ones(n), g, p[1] * d))
+        return np.column_stack((np.ones(n), g, p[1] * d))[:, free]
 
-    x0 = np.array([grid[i][0], grid[i][1], CURVATURE_GRID[i]])
+    x0 = np.array([grid[i][0], grid[i][1], CURVATURE_GRID[i]])[free]
+    bounds = (np.array([-np.inf, -np.inf, lo])[free], np.array([np.inf, np.inf, hi])[free])
     try:
-        sol = least_squares(residuals, x0, jac=jacobian, bounds=([-np.inf, -np.inf, lo], [np.inf, np.inf, hi]),
-                            method="trf", x_scale="jac", ftol=1e-15, xtol=1e-15, gtol=1e-15, max_nfev=1000)
-        kappa = float(sol.x[2])
+        sol = least_squares(residuals, x0, jac=jacobian, bounds=bounds, method="trf", x_scale="jac", ftol=1e-15,
+                            xtol=1e-15, gtol=1e-15, max_nfev=1000)
+        kappa = float(sol.x[-1])
     except (ValueError, np.linalg.LinAlgError):
         kappa = np.nan
     if not np.isfinite(kappa):
-        return _finish_fit(np.nan, np.nan, np.nan, np.nan, np.full((n, 3), np.nan), 3, False)
+        return _finish_fit(np.nan, np.nan, np.nan, np.nan, np.full((n, 3), np.nan), free, False)
     kappa = 0.0 if kappa < CURVATURE_LINE else kappa
     g, d = curvature_basis(model, kappa, u, 1)
-    alpha, rho, rss = _lstsq(g, y)
+    alpha, rho, rss = _lstsq(g, y, offset)
     at_bound = kappa >= CURVATURE_MAX * (1 - 1e-9)
-    return _finish_fit(alpha, rho, kappa, rss, np.column_stack((np.ones(n), g, rho * d)), 3, not at_bound)
+    return _finish_fit(alpha, rho, kappa, rss, np.column_stack((np.ones(n), g, rho * d)), free, not at_bound)
 
 
 def _clean(t, amount):
@@ -495,31 +384,50 @@ def check_models(models) -> tuple:
     return models
 
 
-def fit_trace(t, amount, n_max: float = float("nan"), models=MODELS) -> TraceFit:
-    """Fit the integrated rate laws to one trace and return the AIC-best one (see the module docstring).
+def fit_trace(t, amount, n_max: float = float("nan"), models=MODELS, offset: bool = True) -> TraceFit:
+    """Fit the integrated rate laws to one trace and return the AICc-best one (see the module docstring).
 
     Parameters
     ----------
     t : array of times, s (any order; points with non-finite values or t < 0 are left out).
     amount : array of product amounts, mol.
-    n_max : stoichiometric maximum product amount, mol (NaN if unknown).
+    n_max : stoichiometric maximum product amount, mol (NaN if unknown). When known, first- and second-order
+        fits with the plateau fixed at n_max compete too, and fits whose plateau exceeds it are rejected.
     models : subset of ('zero', 'first', 'second') to try.
+    offset : fit the start offset ``a`` (default); False forces the curve through the origin, P = r0 g(t).
     """
+    # deferred: catalog.core.selection builds on this module's building blocks
+    from catalog.core import plateau_fit, trace_shape
+    from catalog.core.selection import summarise
+
     models = check_models(models)
     t, y = _clean(t, amount)
     n = t.size
     L = max(n, 1)
     T, Yr, W = np.zeros((1, L)), np.zeros((1, L)), np.zeros((1, L), dtype=bool)
     T[0, :n], Yr[0, :n], W[0, :n] = t, y, True
+    n_max_a = np.array([n_max], dtype=float)
     with np.errstate(all="ignore"):
-        U, Yn, c, s, tmax = normalise(T, Yr, W)
+        W, cut = trace_shape.leak_cut(T, Yr, W)
+        max_rate, induction_z = trace_shape.induction(T, Yr, W)
+        U, Yn, c, s, tmax = normalise(T, Yr, W, offset)
         fits = {}
+        k = int(W.sum())
+        u, yn = U[0, :k], Yn[0, :k]
         if model_eligible(U, W, W.sum(1), tmax)[0]:
             for model in models:
-                fits[model] = _fit_zero(U[0], Yn[0]) if model == "zero" else _fit_curved(model, U[0], Yn[0])
-        out = summarise(U, Yn, W, c, s, tmax, fits, models, np.array([n_max], dtype=float))
+                if model == "zero":
+                    fits |= _fit_zero(u, yn, offset)
+                    continue
+                fits[model] = _fit_curved(model, u, yn, offset)
+                if np.isfinite(n_max) and n_max > 0:
+                    fits[f"{model}_full"] = plateau_fit.fit_full(model, u, yn, n_max / s[0], offset)
+        out = summarise(U, Yn, W, c, s, tmax, fits, models, n_max_a, offset)
+    out |= {"leak_cut": cut, "max_rate": max_rate, "induction_z": induction_z}
     scalars = {name: out[name][0] for name in SCALAR_FIELDS}
-    scalars = {k: (v if isinstance(v, str) else (int(v) if k == "n_points" else float(v))) for k, v in scalars.items()}
+    ints = ("n_points", "leak_cut")
+    scalars = {k: (v if isinstance(v, str) else (int(v) if k in ints else (bool(v) if k == "plateau_fixed"
+               else float(v)))) for k, v in scalars.items()}
     return TraceFit(aic={mo: float(out[f"aic_{mo}"][0]) for mo in models}, **scalars)
 
 

@@ -1,0 +1,114 @@
+r"""First- and second-order fits with the plateau fixed at the stoichiometric maximum n_max.
+
+When the charge is known, the product a complete reaction makes is n_max = (limiting amount) x (product ratio), and
+
+.. math::
+    \text{first:}\quad P = a + n_\max\left(1 - e^{-k t}\right),\qquad
+    \text{second:}\quad P = a + n_\max \frac{b t}{1 + b t},\qquad r_0 = n_\max k \;\text{or}\; n_\max b
+
+leave one nonlinear parameter and at most one linear one. At low conversion (a few per cent) the free-plateau fits
+cannot tell curvature from noise, so their r0 is poorly determined or biased; holding the plateau at n_max fixes
+the curvature from the charge. In normalised units (u = t/t_max, y = (P - c)/s, m = n_max/s, kappa = k t_max or
+b t_max) the model is y = alpha + m h(u; kappa) with h = kappa g(u; kappa), so rho = m kappa and the fit packs into
+the (alpha, rho, theta) layout of :class:`catalog.core.kinetics.ModelFit` with
+
+.. math:: \operatorname{cov}(\alpha, \rho, \theta) = A\,C\,A^T,\quad
+          A = \begin{pmatrix}1 & 0\\ 0 & m\\ 0 & 1\end{pmatrix},\quad C = s^2 (J^T J)^{-1},\quad
+          J = \left[1,\; m\,(g + \kappa g')\right]
+
+(the offset column dropped when the offset is not fitted). The profile RSS(kappa) is scanned on
+:data:`FULL_GRID` (down to 1e-6, for blanks that convert a fraction of a per cent) and refined inside the two cells
+around the best grid point: by ``scipy.optimize.minimize_scalar`` in the reference (:func:`fit_full`), by a
+vectorised golden-section search in the batch path (:func:`fit_full_batch`).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from scipy.optimize import minimize_scalar
+
+from catalog.core.kinetics import CURVATURE_MAX, ModelFit, covariance, curvature_basis
+
+__all__ = ["FULL_GRID", "fit_full", "fit_full_batch"]
+
+#: dimensionless curvature grid of the fixed-plateau fits: 4 points a decade from 1e-6 to 1e3
+FULL_GRID = np.geomspace(1e-6, 1e3, 37)
+_GOLDEN_STEPS = 80
+_INVPHI = (np.sqrt(5.0) - 1.0) / 2.0
+
+
+def _h(model, kappa, U):
+    g, d = curvature_basis(model, kappa, U, 1)
+    return kappa * g, g + kappa * d
+
+
+def _pack(model, kappa, U, Y, W, n, m, offset, ok) -> ModelFit:
+    """Linear offset, RSS and covariance at the found kappa, in the ModelFit layout (rows of length len(n))."""
+    kap = kappa[:, None]
+    h, dh = _h(model, kap, U)
+    h, dh = np.where(W, h, 0.0), np.where(W, dh, 0.0)
+    z = np.where(W, Y - m[:, None] * h, 0.0)
+    alpha = z.sum(1) / np.maximum(n, 1) if offset else np.zeros(len(n))
+    r = np.where(W, z - alpha[:, None], 0.0)
+    rss = (r * r).sum(1)
+    jk = m[:, None] * dh
+    p = 2 if offset else 1
+    if offset:
+        jtj = np.stack([np.stack([n, jk.sum(1)], -1), np.stack([jk.sum(1), (jk * jk).sum(1)], -1)], -2)
+    else:
+        jtj = (jk * jk).sum(1)[:, None, None]
+    c = covariance(jtj, rss / (n - p))
+    a = np.zeros((len(n), 3, p))
+    if offset:
+        a[:, 0, 0] = 1.0
+    a[:, 1, -1] = m
+    a[:, 2, -1] = 1.0
+    cov = np.einsum("mij,mjk,mlk->mil", a, c, a)
+    ok = ok & np.isfinite(cov[:, 1, 1]) & np.isfinite(rss) & (kappa < CURVATURE_MAX * (1 - 1e-9))
+    return ModelFit(alpha, m * kappa, kappa, rss, cov, np.full(len(n), float(p)), np.full(len(n), float(p)), ok)
+
+
+def _profile_rss(model, kappa, U, Y, W, n, m, offset):
+    h = np.where(W, _h(model, kappa, U)[0], 0.0)
+    z = np.where(W, Y - m[:, None] * h, 0.0)
+    if offset:
+        z = np.where(W, z - (z.sum(1) / np.maximum(n, 1))[:, None], 0.0)
+    rss = (z * z).sum(1)
+    return np.where(np.isfinite(rss) & (rss >= 0), rss, np.inf)
+
+
+def fit_full(model: str, u, y, m: float, offset: bool = True) -> ModelFit:
+    """Reference fixed-plateau fit of one normalised trace (u, y), plateau m in units of y."""
+    U, Y, W = u[None, :], y[None, :], np.ones((1, len(u)), bool)
+    n, mm = np.array([float(len(u))]), np.array([float(m)])
+    grid = [float(_profile_rss(model, k, U, Y, W, n, mm, offset)[0]) for k in FULL_GRID]
+    i = int(np.argmin(grid))
+    lo, hi = FULL_GRID[max(i - 1, 0)], FULL_GRID[min(i + 1, FULL_GRID.size - 1)]
+    sol = minimize_scalar(lambda k: float(_profile_rss(model, k, U, Y, W, n, mm, offset)[0]), bounds=(lo, hi),
+                          method="bounded", options={"xatol": 1e-13 * hi, "maxiter": 500})
+    kappa = float(sol.x) if np.isfinite(sol.fun) else np.nan
+    return _pack(model, np.array([kappa]), U, Y, W, n, mm, offset, np.array([np.isfinite(kappa)]))
+
+
+def fit_full_batch(model: str, U, Y, W, n, m, offset: bool, eligible) -> ModelFit:
+    """Vectorised fixed-plateau fits of padded normalised rows; ``m`` is each row's plateau in units of y."""
+    grid = np.stack([_profile_rss(model, k, U, Y, W, n, m, offset) for k in FULL_GRID], 1)
+    i = np.argmin(grid, axis=1)
+    lo, hi = FULL_GRID[np.maximum(i - 1, 0)], FULL_GRID[np.minimum(i + 1, FULL_GRID.size - 1)]
+    # golden-section search in log kappa (the grid is geometric)
+    a, b = np.log(lo), np.log(hi)
+    x1, x2 = b - _INVPHI * (b - a), a + _INVPHI * (b - a)
+    f1 = _profile_rss(model, np.exp(x1)[:, None], U, Y, W, n, m, offset)
+    f2 = _profile_rss(model, np.exp(x2)[:, None], U, Y, W, n, m, offset)
+    for _ in range(_GOLDEN_STEPS):
+        left = f1 <= f2
+        b = np.where(left, x2, b)
+        a = np.where(left, a, x1)
+        x2n = np.where(left, x1, a + _INVPHI * (b - a))
+        x1n = np.where(left, b - _INVPHI * (b - a), x2)
+        fn = _profile_rss(model, np.exp(np.where(left, x1n, x2n))[:, None], U, Y, W, n, m, offset)
+        f1, f2 = np.where(left, fn, f2), np.where(left, f1, fn)
+        x1, x2 = x1n, x2n
+    kappa = np.exp(0.5 * (a + b))
+    ok = eligible & np.isfinite(m) & (m > 0) & np.isfinite(grid.min(axis=1))
+    return _pack(model, np.where(ok, kappa, 1.0), U, Y, W, n, np.where(ok, m, 1.0), offset, ok)
