@@ -134,7 +134,8 @@ def test_messages_carry_the_numbers():
 
 def test_thresholds_come_from_settings():
     result = _result([{"r2": 0.97}])
-    assert _codes(diagnostics.evaluate(result, Settings())) == {"poor-fit"}
+    # the catalyst's only trial fits poorly, so the catalyst row carries the roll-up too
+    assert _codes(diagnostics.evaluate(result, Settings())) == {"poor-fit", "trial-fit-quality"}
     assert diagnostics.evaluate(result, Settings(min_r2=0.95)).empty
 
 
@@ -215,7 +216,19 @@ def _loading_rows(phi_first):
     eta = transport.effectiveness_sphere(phi_first * np.sqrt(sites / sites[0])) if phi_first else np.ones(3)
     tof = 2.0 * eta
     return [{"metal_loading": w, "rate_per_mass_ref": t * s, "tof_ref": t, "tof_ref_low": 0.95 * t,
-             "tof_ref_high": 1.05 * t} for w, s, t in zip(loading, sites, tof)]
+             "tof_ref_high": 1.05 * t, "description": "Pd on alumina, loading series"}
+            for w, s, t in zip(loading, sites, tof)]
+
+
+def test_unrelated_catalysts_sharing_metal_and_support_are_no_series():
+    # Regression (issue 11, item 6): two different preparations that happen to share metal, support and dispersion
+    # were taken as a loading series and flagged although both were clean.
+    rows = _loading_rows(60.0)
+    for i, row in enumerate(rows):
+        row["description"] = f"preparation {i}"
+    assert diagnostics.loading_series(_result(catalyst_rows=rows).catalysts).empty
+    rows[0]["description"] = rows[1]["description"] = rows[2]["description"] = float("nan")
+    assert diagnostics.loading_series(_result(catalyst_rows=rows).catalysts).empty
 
 
 def test_loading_series_slope_half_under_pore_diffusion_flags_every_member():

@@ -51,6 +51,15 @@ DISPERSION_MATCH = 0.10
 #: One stray trial among many is more likely a trial problem (a leak, a mis-weighed charge) than the catalyst; two
 #: independent trials make a pattern.
 DEACTIVATION_MIN_TRIALS = 2
+#: A well-determined free plateau (relative standard error below this) is compared with n_max directly, whether or
+#: not the trace has levelled off (common practice, no source).
+PLATEAU_WELL_DETERMINED = 0.05
+#: ... and counts as short when below n_max by more than this fraction and by more than 3 of its standard errors
+#: (a few per cent is within the usual calibration of a burette or a charge; common practice, no source).
+PLATEAU_MARGIN = 0.05
+#: An induction period needs the largest local rate to exceed the fitted r0 by this factor as well as being
+#: significant (common practice, no source).
+INDUCTION_RATIO = 1.5
 
 #: code → (title, what it means and what to do).
 FLAG_CODES: dict[str, tuple[str, str]] = {
@@ -146,6 +155,36 @@ FLAG_CODES: dict[str, tuple[str, str]] = {
         "ln TOF against 1/T bends more than scatter explains: the mechanism, the rate-limiting step or transport "
         "control may change across the range. Quote Ea for a narrower range, or check transport at the hot end.",
     ),
+    "leak": (
+        "Product fell after its maximum (leak or drift)",
+        "Product cannot disappear, yet the readings fall after the trace's maximum: the vessel leaks or the "
+        "instrument drifts. The readings after the maximum were left out of the fit, so the rate stands, but check "
+        "the seals and the baseline before trusting TON or the plateau. This is not read as deactivation.",
+    ),
+    "induction-period": (
+        "Trace starts slowly, then speeds up (induction period)",
+        "The local rate rises well above the rate at the start: the catalyst needed time to activate (reduction, "
+        "wetting, a lag in mixing or warming). The integrated rate laws assume the fastest rate at the start, so "
+        "the fitted initial rate understates the working catalyst; the largest local rate is given in the message. "
+        "Pre-activate the catalyst or discard the lag and repeat.",
+    ),
+    "blank-not-detected": (
+        "Blank rate not detected above noise",
+        "This blank's rate is within its own noise of zero, so it gives only an upper limit on the uncatalysed rate "
+        "and is left out of the blank model. Where it bounds the blank, the enhancement is reported as a lower bound.",
+    ),
+    "enhancement-bound": (
+        "Enhancement is a lower bound",
+        "The blank was not detected above noise at the reference temperature (or at a hotter one), so the "
+        "uncatalysed rate is known only to lie below a limit: the catalysed rate is at least this many times the "
+        "blank. Run longer blanks or a more sensitive read-out to turn the bound into a number.",
+    ),
+    "trial-fit-quality": (
+        "Several trials are poorly described by the rate laws",
+        "Two or more (or most) of this catalyst's trials fit poorly, show patterned residuals or fell back to the "
+        "initial slope: its rates and everything derived from them are less certain than their intervals say. "
+        "Look at the traces.",
+    ),
     "thermal-hazard": (
         "Adiabatic temperature rise estimated",
         "If all reaction heat stayed in the vessel the contents would warm by this much. Bands: low below 50 K "
@@ -165,7 +204,8 @@ FLAG_SEVERITY: dict[str, str] = {
     "residual-pattern": "note", "fit-fallback": "warning", "replicate-spread": "warning",
     "blank-dominated": "warning", "single-temperature": "warning", "no-ea": "warning", "few-temperatures": "note",
     "ref-outside-range": "note", "arrhenius-curvature": "note", "thermal-hazard": "caution",
-    "pressure-build-up": "caution",
+    "pressure-build-up": "caution", "leak": "warning", "induction-period": "warning", "blank-not-detected": "note",
+    "enhancement-bound": "note", "trial-fit-quality": "warning",
 }
 
 # Two-sided 95 % normal quantile, matching the interval convention of catalog.core.arrhenius.
@@ -204,6 +244,28 @@ def _trial_flags(trials: pd.DataFrame, settings) -> list[dict]:
     rise = _column(trials, "adiabatic_rise")
     burst = _column(trials, "pressure_rise_max")
     temperature = _column(trials, "temperature")
+    plateau_se = _column(trials, "plateau_se")
+    plateau_abs = _column(trials, "plateau")
+    fixed = trials["plateau_fixed"].fillna(False).astype(bool) if "plateau_fixed" in trials.columns else False
+    leak = _column(trials, "leak_cut")
+    induction_z = _column(trials, "induction_z")
+    max_rate = _column(trials, "max_rate")
+    r0 = _column(trials, "r0")
+    undetected = (trials["blank_undetected"].fillna(False).astype(bool) if "blank_undetected" in trials.columns
+                  else pd.Series(False, trials.index))
+
+    for tid in trials.index[leak > 0]:
+        out.append(_flag("trial", tid, "leak", f"The readings fall after the trace's maximum; the last "
+                         f"{leak[tid]:.0f} were left out of the fit.", leak[tid], 0.0))
+    for tid in trials.index[catalysed & (induction_z > s.induction_z_limit) & (max_rate > INDUCTION_RATIO * r0)]:
+        out.append(_flag("trial", tid, "induction-period",
+                         f"The largest local rate, {max_rate[tid]:.3g} mol/s, is {max_rate[tid] / r0[tid]:.1f} times "
+                         f"the fitted initial rate (z = {induction_z[tid]:.1f} over the first readings, limit "
+                         f"{s.induction_z_limit:g}).", induction_z[tid], s.induction_z_limit))
+    for tid in trials.index[~catalysed & undetected]:
+        out.append(_flag("trial", tid, "blank-not-detected",
+                         f"Blank rate {r0[tid]:.3g} mol/s is within {Z95:.2f} standard errors of zero.",
+                         r0[tid], 0.0))
 
     for tid in trials.index[model.isin(["initial_slope", "none"])]:
         what = "no rate could be fitted" if model[tid] == "none" else "the rate is the slope of the early points"
@@ -224,7 +286,12 @@ def _trial_flags(trials: pd.DataFrame, settings) -> list[dict]:
     # A short plateau alone is not enough: a slow trial stopped early has an extrapolated plateau that can be anything.
     # Only when the trace has reached its own plateau (rate died) is the shortfall measured rather than guessed.
     levelled = final >= LEVELLED_FRACTION * plateau
-    for tid in trials.index[catalysed & (plateau > 0) & (plateau < s.plateau_shortfall) & levelled]:
+    # A free plateau known to a few per cent is tested against n_max with its own standard error, levelled or not.
+    determined = ~fixed & (plateau_se < PLATEAU_WELL_DETERMINED * plateau_abs)
+    n_max = plateau_abs / plateau
+    below = (plateau < 1 - PLATEAU_MARGIN) & (n_max - plateau_abs > 3 * plateau_se)
+    short = (plateau < s.plateau_shortfall) & levelled
+    for tid in trials.index[catalysed & (plateau > 0) & (short | (determined & below))]:
         out.append(_flag("trial", tid, "plateau-short",
                          f"The trace levelled off at {plateau[tid]:.0%} of full conversion (reached "
                          f"{final[tid]:.0%}), below {s.plateau_shortfall:.0%}.", plateau[tid], s.plateau_shortfall))
@@ -266,19 +333,40 @@ def _deactivation_rollup(trials: pd.DataFrame, trial_flags: list[dict]) -> list[
     """
     if "catalyst_id" not in trials.columns:
         return []
-    hit = {f["record_id"] for f in trial_flags if f["code"] in ("late-shortfall", "plateau-short")}
+    def trials_with(codes):
+        return {f["record_id"] for f in trial_flags if f["code"] in codes}
+
+    hit = trials_with(("late-shortfall", "plateau-short"))
+    fit_quality = trials_with(("poor-fit", "residual-pattern", "fit-fallback"))
+    leaks, lags = trials_with(("leak",)), trials_with(("induction-period",))
     out = []
     for cid, group in trials[trials["catalyst_id"].notna()].groupby("catalyst_id", sort=True):
         n = len(group)
-        k = sum(str(t) in hit for t in group.index)
+        ids = [str(t) for t in group.index]
+        k = sum(t in hit for t in ids)
         if k >= DEACTIVATION_MIN_TRIALS or k > n / 2:
             out.append(_flag("catalyst", cid, "deactivation",
                              f"{k} of {n} trials slow down late or level off short of full conversion.", k / n, 0.5))
+        k = sum(t in fit_quality for t in ids)
+        if k >= DEACTIVATION_MIN_TRIALS or k > n / 2:
+            out.append(_flag("catalyst", cid, "trial-fit-quality",
+                             f"{k} of {n} trials fit poorly, show patterned residuals or fell back to the initial "
+                             "slope.", k / n, 0.5))
+        # A leak or a slow start in any trial reaches the catalyst row: each bears on how far its figures hold.
+        for code, which, what in (("leak", leaks, "show a fall in product after the maximum (cut there)"),
+                                  ("induction-period", lags, "start slowly and then speed up")):
+            k = sum(t in which for t in ids)
+            if k:
+                out.append(_flag("catalyst", cid, code, f"{k} of {n} trials {what}.", k / n, 0.0))
     return out
 
 
 def loading_series(catalysts: pd.DataFrame) -> pd.DataFrame:
-    """Loading series (same metal and support, matching dispersion, ≥ 2 loadings) and their log-log slope.
+    """Loading series and their log-log slope.
+
+    A series is explicit: catalysts of one family (same metal, same support and the same stated preparation, the
+    ``description``) at matching dispersion and at least two loadings. Two unrelated catalysts that merely share a
+    metal and a support are not a series: without a stated preparation a catalyst joins no series.
 
     For each series the slope b of
 
@@ -301,10 +389,15 @@ def loading_series(catalysts: pd.DataFrame) -> pd.DataFrame:
     rate = _column(catalysts, "rate_per_mass_ref")
     tof = _column(catalysts, "tof_ref")
     dispersion = _column(catalysts, "dispersion")
-    usable = (rate > 0) & (tof > 0) & (dispersion > 0) & catalysts["metal"].notna() & catalysts["support"].notna()
+    family = (catalysts["description"].astype(object).where(catalysts["description"].notna(), "")
+              if "description" in catalysts.columns else pd.Series("", catalysts.index))
+    family = family.map(lambda d: str(d).strip())
+    usable = ((rate > 0) & (tof > 0) & (dispersion > 0) & catalysts["metal"].notna() & catalysts["support"].notna()
+              & (family != ""))
     ln_se = (np.log(_column(catalysts, "tof_ref_high")) - np.log(_column(catalysts, "tof_ref_low"))) / (2 * Z95)
     rows = []
-    for (metal, support), group in catalysts[usable].groupby(["metal", "support"], sort=True):
+    keyed = catalysts[usable].assign(_family=family[usable])
+    for (metal, support, _), group in keyed.groupby(["metal", "support", "_family"], sort=True):
         # Dispersion clusters: sorted ln D with a gap wider than the match tolerance starts a new cluster.
         ln_d = np.log(dispersion[group.index]).sort_values()
         cluster = np.concatenate([[0], np.cumsum(np.diff(ln_d.to_numpy()) > np.log1p(DISPERSION_MATCH))])
@@ -352,16 +445,28 @@ def _catalyst_flags(catalysts: pd.DataFrame, settings) -> list[dict]:
         out.append(_flag("catalyst", cid, "transport-ea",
                          f"Apparent Ea {ea[cid] / 1e3:.1f} kJ/mol (95 % interval {ea_low[cid] / 1e3:.1f} to "
                          f"{ea_high[cid] / 1e3:.1f}) is below {s.low_ea / 1e3:g} kJ/mol.", ea[cid], s.low_ea))
-    for cid in catalysts.index[wp > s.weisz_prater_limit]:
+    # the limit for the measured order where a concentration series gave one, else the order-free setting
+    wp_limit = _column(catalysts, "weisz_prater_limit").fillna(s.weisz_prater_limit)
+    for cid in catalysts.index[wp > wp_limit]:
         out.append(_flag("catalyst", cid, "weisz-prater",
                          f"Largest Weisz-Prater number among its trials is {wp[cid]:.3g}, above "
-                         f"{s.weisz_prater_limit:g}.", wp[cid], s.weisz_prater_limit))
+                         f"{wp_limit[cid]:.3g}.", wp[cid], wp_limit[cid]))
+    bounded = (catalysts["enhancement_ref_bound"].fillna(False).astype(bool)
+               if "enhancement_ref_bound" in catalysts.columns else pd.Series(False, catalysts.index))
+    low_bound = _column(catalysts, "enhancement_ref_low")
+    for cid in catalysts.index[bounded]:
+        out.append(_flag("catalyst", cid, "enhancement-bound",
+                         f"The blank is not detected above noise at {_kelvin_text(s.reference_temperature)}: the "
+                         f"catalysed rate is at least {low_bound[cid]:.3g} times the blank (95 %).", low_bound[cid],
+                         0.0))
     for cid in catalysts.index[mears > s.mears_limit]:
         out.append(_flag("catalyst", cid, "mears", f"Largest Mears number among its trials is {mears[cid]:.3g}, "
                          f"above {s.mears_limit:g}.", mears[cid], s.mears_limit))
     series = loading_series(catalysts)
     for cid, row in series.iterrows():
-        if abs(row["slope"] - 1.0) > s.loading_slope_tolerance:
+        # Flag only when the slope is off by more than the tolerance and its own 95 % interval excludes 1.
+        excludes_one = np.isfinite(row["slope_low"]) and not (row["slope_low"] <= 1.0 <= row["slope_high"])
+        if abs(row["slope"] - 1.0) > s.loading_slope_tolerance and excludes_one:
             bound = 1.0 + np.sign(row["slope"] - 1.0) * s.loading_slope_tolerance
             interval = (f" (95 % interval {row['slope_low']:.2f} to {row['slope_high']:.2f})"
                         if np.isfinite(row["slope_low"]) else "")

@@ -6,9 +6,9 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from catalog.analysis.per_trial import blank_charge, reactant_concentration
+from catalog.analysis.per_trial import blank_charge, blank_upper_at, reactant_concentration
 from catalog.analysis.settings import SET_POINT_TOLERANCE, Settings
-from catalog.core import arrhenius
+from catalog.core import arrhenius, transport
 from catalog.core.orders import reaction_order
 from catalog.core.stats import Z95, t95
 
@@ -36,8 +36,15 @@ def replicate_cv(T: np.ndarray, values: np.ndarray) -> float:
     return worst
 
 
-def catalyst_figures(trial_table: pd.DataFrame, catalysts: pd.DataFrame, blank, settings: Settings) -> pd.DataFrame:
-    """One row per catalyst: Arrhenius/Eyring on TOF, figures at the reference temperature, spreads and series."""
+def catalyst_figures(trial_table: pd.DataFrame, catalysts: pd.DataFrame, blank, settings: Settings,
+                     blank_limits: pd.DataFrame | None = None) -> pd.DataFrame:
+    """One row per catalyst: Arrhenius/Eyring on TOF, figures at the reference temperature, spreads and series.
+
+    ``blank_limits`` (:func:`catalog.analysis.per_trial.blank_limits`) holds the upper limits of blanks not detected
+    above noise; where one bounds the blank at T_ref the enhancement there is a lower bound
+    (``enhancement_ref_bound``): ``enhancement_ref`` and its upper end are NaN and ``enhancement_ref_low`` is
+    1 + TOF_low N / (upper limit x charge).
+    """
     T_ref = settings.reference_temperature
     rows = []
     catalysed = trial_table[trial_table["catalyst_id"].notna()]
@@ -58,11 +65,19 @@ def catalyst_figures(trial_table: pd.DataFrame, catalysts: pd.DataFrame, blank, 
         row["delta_ea_blank"] = row["ea"] - blank_ea
         n_sites = float(np.nanmedian(group["sites"])) if group["sites"].notna().any() else np.nan
         mass = float(np.nanmedian(group["catalyst_mass"]))
-        if blank is not None and np.isfinite(row["tof_ref"]):
+        bound = float(blank_upper_at(blank_limits, T_ref)[0]) if blank_limits is not None else np.nan
+        row["enhancement_ref_bound"] = bool(np.isfinite(bound) and np.isfinite(row["tof_ref"]))
+        row["enhancement_ref_log_se"] = np.nan
+        if row["enhancement_ref_bound"]:
+            ref_charge = float(np.median(charge.loc[group.index[main]]))
+            row |= {"enhancement_ref": np.nan, "enhancement_ref_high": np.nan, "blank_extrapolated": False,
+                    "enhancement_ref_low": 1 + row["tof_ref_low"] * n_sites / (bound * ref_charge)}
+        elif blank is not None and np.isfinite(row["tof_ref"]):
             # Enhancement at T_ref for the catalyst's median charge and sites: E = 1 + TOF·N / r_b(T_ref), with
             # var ln(E − 1) = var ln TOF + var ln r_b: the blank model's uncertainty often dominates.
             gain = row["tof_ref"] * n_sites / (blank_ref * float(np.median(charge.loc[group.index[main]])))
-            spread = Z95 * np.hypot(row["tof_ref_log_se"], blank_log_se)
+            row["enhancement_ref_log_se"] = float(np.hypot(row["tof_ref_log_se"], blank_log_se))
+            spread = Z95 * row["enhancement_ref_log_se"]
             row["enhancement_ref"] = 1 + gain
             row["enhancement_ref_low"] = 1 + gain * np.exp(-spread)
             row["enhancement_ref_high"] = 1 + gain * np.exp(spread)
@@ -80,7 +95,11 @@ def catalyst_figures(trial_table: pd.DataFrame, catalysts: pd.DataFrame, blank, 
         row["median_sites"] = n_sites
         row["min_enhancement"] = float(np.nanmin(group["enhancement"])) if group["enhancement"].notna().any() else np.nan
         row["max_weisz_prater"] = _nanmax(group["weisz_prater"])
-        row["max_mears"] = _nanmax(group["mears"])
+        # Trials assume first order (M is linear in the order n); the catalyst row uses the measured order when a
+        # concentration series gave one, and the Weisz-Prater limit for that order.
+        measured = abs(row["order"]) if np.isfinite(row["order"]) else 1.0
+        row["max_mears"] = _nanmax(group["mears"]) * measured
+        row["weisz_prater_limit"] = float(transport.weisz_prater_limit(row["order"]))
         row["max_adiabatic_rise"] = _nanmax(group["adiabatic_rise"])
         rows.append(row)
     out = pd.DataFrame(rows)
@@ -92,17 +111,27 @@ def catalyst_figures(trial_table: pd.DataFrame, catalysts: pd.DataFrame, blank, 
 
 
 def standard_series(group: pd.DataFrame) -> np.ndarray:
-    """Trials of one catalyst run at its standard initial concentration: the Arrhenius and replicate set.
+    """Trials of one catalyst run at its standard charge: the Arrhenius and replicate set.
 
     TOF of a reaction that is not zero order depends on concentration, so trials of a concentration series would
-    bend an Arrhenius plot; illuminated trials are kept apart for the same reason. The standard concentration is the one measured at the most set points (then the one
-    with the most trials); trials without a known concentration count as one more group.
+    bend an Arrhenius plot; illuminated trials are kept apart for the same reason. A trial's charge is its initial
+    concentration where known; a trial whose concentration is unknown (no liquid volume given) takes the
+    concentration of the catalyst's trials with the same limiting amount, so one charge is one series whether or
+    not every trial states its volume. The standard charge is the one measured at the most set points (then the one
+    with the most trials); trials whose charge stays unknown count as one more group per limiting amount.
     """
     c = reactant_concentration(group)
-    level = np.where(np.isfinite(c), np.round(np.log(np.where(c > 0, c, 1.0)), 3), np.inf)
+    amount = np.round(group["limiting_amount"].to_numpy(float), 12)
+    known = np.isfinite(c) & (c > 0)
+    for i in np.flatnonzero(~known):
+        same = known & (amount == amount[i])
+        if same.any():
+            c[i] = float(np.median(c[same]))
+    level = np.where(np.isfinite(c) & (c > 0), np.round(np.log(np.where(c > 0, c, 1.0)), 3), np.inf)
     # Illuminated trials measure a different (photo-assisted) rate: they never join the dark series.
     lit = np.nan_to_num(group["light_power"].to_numpy(float)) > 0
-    key = np.array([f"{'lit' if on else 'dark'} {x}" for on, x in zip(lit, level)])
+    key = np.array([f"{'lit' if on else 'dark'} {x} {'' if np.isfinite(x) else a}"
+                    for on, x, a in zip(lit, level, amount)])
     labels = _set_points(group["temperature"].to_numpy(float))
     best, best_score = None, (-1, -1)
     for value in np.unique(key):
@@ -119,7 +148,7 @@ def _nanmax(series: pd.Series) -> float:
 
 _ARRHENIUS_EMPTY = dict.fromkeys(
     ["ea", "ea_se", "ea_low", "ea_high", "ln_a", "ln_a_low", "ln_a_high", "dh", "dh_low", "dh_high", "ds", "ds_low",
-     "ds_high", "curvature_p", "birge", "r2_arrhenius", "tof_ref_log_se"], np.nan)
+     "ds_high", "curvature_p", "birge", "r2_arrhenius", "tof_ref_log_se", "tof_ref_dof", "ea_dof"], np.nan)
 
 
 def _arrhenius_row(T: np.ndarray, tof: np.ndarray, tof_se: np.ndarray, T_ref: float) -> dict:
@@ -147,7 +176,8 @@ def _arrhenius_row(T: np.ndarray, tof: np.ndarray, tof_se: np.ndarray, T_ref: fl
             sem = max(float(np.std(values, ddof=1) / np.sqrt(n)), stated_sem) if n > 1 else stated_sem
             half = (t95(n - 1) if n > 1 else Z95) * sem
             row |= {"tof_ref": mean, "tof_ref_low": max(mean - half, 0.0), "tof_ref_high": mean + half,
-                    "tof_ref_extrapolated": False, "tof_ref_log_se": sem / mean}
+                    "tof_ref_extrapolated": False, "tof_ref_log_se": sem / mean,
+                    "tof_ref_dof": float(n - 1) if n > 1 else np.inf}
         else:
             row |= {"tof_ref": np.nan, "tof_ref_low": np.nan, "tof_ref_high": np.nan,
                     "tof_ref_extrapolated": bool(good.any()), "tof_ref_log_se": np.nan}
@@ -163,6 +193,8 @@ def _arrhenius_row(T: np.ndarray, tof: np.ndarray, tof_se: np.ndarray, T_ref: fl
         "tof_ref": float(np.asarray(pred.value)), "tof_ref_low": float(np.asarray(pred.low)),
         "tof_ref_high": float(np.asarray(pred.high)), "tof_ref_extrapolated": bool(np.asarray(pred.extrapolated)),
         "tof_ref_log_se": float(np.log(np.asarray(pred.high) / np.asarray(pred.value))) / fit.coverage_factor,
+        # no residual dof: the stated errors are taken as known, so the normal quantile (infinite dof)
+        "tof_ref_dof": float(fit.dof) if fit.dof > 0 else np.inf, "ea_dof": float(fit.dof) if fit.dof > 0 else np.inf,
     }
     return row
 

@@ -11,9 +11,10 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from catalog.analysis.settings import TRIAL_FIT_COLUMNS
+from catalog.analysis.settings import SET_POINT_TOLERANCE, TRIAL_FIT_COLUMNS
 from catalog.core import arrhenius, batch, hazard, photons, sites, transport
 from catalog.core.measurements import MEASUREMENTS, condition_arrays, to_amount
+from catalog.core.stats import Z95
 
 
 def trace_amounts(trials: pd.DataFrame, points: pd.DataFrame) -> np.ndarray:
@@ -87,20 +88,67 @@ def blank_charge(trials: pd.DataFrame) -> pd.Series:
     return amount.where(np.isfinite(amount), float(blank_amount.median()))
 
 
+def blank_detected(trials: pd.DataFrame, fits: pd.DataFrame) -> pd.Series:
+    """Whether each blank trial's initial rate is above its noise: r0 > z_{0.975} se(r0) (indexed like the blanks).
+
+    A blank at signal/noise of about 1 has a log rate biased by the noise (and a negative one cannot be logged at
+    all), so only detected blanks enter the blank model; the others give upper limits (:func:`blank_limits`).
+    """
+    blanks = trials.index[trials["catalyst_id"].isna()].intersection(fits.index)
+    f = fits.loc[blanks]
+    return pd.Series((f["r0"] > Z95 * f["r0_se"]).to_numpy(bool), index=blanks)
+
+
+def _per_charge(trials: pd.DataFrame, index) -> pd.Series:
+    return trials.loc[index, "product_ratio"] * blank_charge(trials).loc[index]
+
+
 def blank_model(trials: pd.DataFrame, fits: pd.DataFrame) -> arrhenius.ArrheniusFit | None:
-    """Arrhenius fit of the blank trials' initial rates per unit charge, or None with fewer than two temperatures.
+    """Arrhenius fit of the detected blank trials' initial rates per unit charge, or None with fewer than two
+    temperatures.
 
     .. math:: \\frac{r_{0,b}}{\\nu\\, n_{A,0}} = A_b\\, e^{-E_{a,b}/RT}
+
+    Weighted by each blank's own standard error on the log scale, with the Birge ratio widening the covariance
+    when the scatter exceeds those errors (:func:`catalog.core.arrhenius.fit_line`, ``scatter='birge'``): the
+    blanks' precision spans orders of magnitude because their rates do, and an additive extra variance would flatten
+    those weights and let the least precise blank pull the line.
     """
-    blanks = trials.index[trials["catalyst_id"].isna()]
-    if len(blanks) == 0:
+    detected = blank_detected(trials, fits)
+    index = detected.index[detected.to_numpy()]
+    if len(index) == 0:
         return None
-    f = fits.loc[fits.index.intersection(blanks)]
-    per = trials.loc[f.index, "product_ratio"] * blank_charge(trials).loc[f.index]
+    f = fits.loc[index]
+    per = _per_charge(trials, index)
     try:
-        return arrhenius.fit_arrhenius(trials.loc[f.index, "temperature"], f["r0"] / per, f["r0_se"] / per)
+        return arrhenius.fit_arrhenius(trials.loc[index, "temperature"], f["r0"] / per, f["r0_se"] / per,
+                                       scatter="birge")
     except (arrhenius.TooFewTemperatures, ValueError):
         return None
+
+
+def blank_limits(trials: pd.DataFrame, fits: pd.DataFrame) -> pd.DataFrame:
+    """Upper limits of the blanks not detected above noise: ``temperature`` (K) and ``upper`` (rate per charge,
+    limiting-reactant basis, max(r0, 0) + z_{0.975} se), one row per such blank."""
+    detected = blank_detected(trials, fits)
+    index = detected.index[~detected.to_numpy()]
+    f = fits.loc[index]
+    per = _per_charge(trials, index) * 1.0
+    upper = (np.maximum(f["r0"], 0.0) + Z95 * f["r0_se"]) / per
+    return pd.DataFrame({"temperature": trials.loc[index, "temperature"].to_numpy(float),
+                         "upper": upper.to_numpy(float)})
+
+
+def blank_upper_at(limits: pd.DataFrame, T) -> np.ndarray:
+    """Tightest upper limit on the blank rate per charge at each temperature T from undetected blanks at T or
+    hotter (the blank rate rises with temperature, so a limit at a hotter set point bounds it at T); NaN where no
+    undetected blank bounds it."""
+    T = np.atleast_1d(np.asarray(T, dtype=float))
+    if limits.empty:
+        return np.full(T.shape, np.nan)
+    hotter = limits["temperature"].to_numpy(float)[None, :] >= T[:, None] - SET_POINT_TOLERANCE
+    upper = np.where(hotter, limits["upper"].to_numpy(float)[None, :], np.inf).min(axis=1)
+    return np.where(np.isfinite(upper), upper, np.nan)
 
 
 def trial_figures(trials: pd.DataFrame, catalysts: pd.DataFrame, fits: pd.DataFrame) -> tuple[pd.DataFrame, object]:
@@ -138,6 +186,16 @@ def trial_figures(trials: pd.DataFrame, catalysts: pd.DataFrame, fits: pd.DataFr
         for column in ("blank_rate", "enhancement", "enhancement_low", "enhancement_high"):
             out[column] = np.nan
         out["blank_extrapolated"] = False
+    # Where a blank at this temperature or hotter was not detected above noise, the blank rate here is known only
+    # to lie below that blank's upper limit: the enhancement is then a lower bound, not a number.
+    detected = blank_detected(trials, fits)
+    out["blank_undetected"] = ~detected.reindex(out.index).fillna(True).to_numpy(bool)
+    bound = blank_upper_at(blank_limits(trials, fits), T) * charge
+    bounded = catalysed & np.isfinite(bound)
+    out["enhancement_bound"] = bounded
+    out.loc[bounded, "enhancement"] = np.nan
+    out.loc[bounded, "enhancement_high"] = np.nan
+    out.loc[bounded, "enhancement_low"] = (np.maximum(r0 - Z95 * r0_se, 0.0) / bound)[bounded]
 
     site_table = _site_table(catalysts)
     per_mass = site_table.reindex(out["catalyst_id"])
@@ -157,7 +215,12 @@ def trial_figures(trials: pd.DataFrame, catalysts: pd.DataFrame, fits: pd.DataFr
 
     flux = photons.photon_flux(out["light_power"].to_numpy(float), out["light_wavelength"].to_numpy(float))
     out["photon_flux"] = flux
-    out["quantum_yield"] = photons.apparent_quantum_yield(r0, flux)
+    # Light-induced rate of product formation: the lit trial's r0 less the same catalyst's dark rate at the same set
+    # point (which already holds the blank); without dark trials there, less the blank rate alone.
+    dark = _dark_rate(out)
+    ratio_p = out["product_ratio"].to_numpy(float)
+    dark_product = np.where(np.isfinite(dark), dark * charge, blank_rate) * ratio_p
+    out["quantum_yield"] = photons.apparent_quantum_yield(out["r0"].to_numpy(float), flux, dark_product)
 
     # Transport numbers for a suspended particle: the rate per particle volume against diffusion into (Weisz-Prater)
     # and film transport to (Mears) one particle.
@@ -179,6 +242,22 @@ def trial_figures(trials: pd.DataFrame, catalysts: pd.DataFrame, fits: pd.DataFr
     burst = hazard.pressure_rise(out["n_max"].to_numpy(float), out["headspace_volume"].to_numpy(float), T)
     out["pressure_rise_max"] = np.where(closed, burst.delta_p, np.nan)
     return out, blank
+
+
+def _dark_rate(table: pd.DataFrame) -> np.ndarray:
+    """Mean dark rate per charge (limiting-reactant basis) of the same catalyst at each trial's set point; NaN where
+    the catalyst has no dark trial within SET_POINT_TOLERANCE."""
+    lit = np.nan_to_num(table["light_power"].to_numpy(float)) > 0
+    charge = blank_charge(table).to_numpy(float)
+    per = table["rate"].to_numpy(float) / charge
+    cat = table["catalyst_id"].astype(object).to_numpy()
+    T = table["temperature"].to_numpy(float)
+    out = np.full(len(table), np.nan)
+    for i in np.flatnonzero(lit & table["catalyst_id"].notna().to_numpy()):
+        same = ~lit & (cat == cat[i]) & (np.abs(T - T[i]) <= SET_POINT_TOLERANCE) & np.isfinite(per)
+        if same.any():
+            out[i] = per[same].mean()
+    return out
 
 
 def reactant_concentration(trials: pd.DataFrame) -> np.ndarray:

@@ -21,7 +21,7 @@ from dataclasses import dataclass
 import pandas as pd
 
 from catalog.analysis.per_catalyst import catalyst_figures
-from catalog.analysis.per_trial import fit_all, trial_figures
+from catalog.analysis.per_trial import blank_limits, fit_all, trial_figures
 from catalog.analysis.settings import Settings
 
 
@@ -51,4 +51,5 @@ def analyse(catalysts: pd.DataFrame, trials: pd.DataFrame, points: pd.DataFrame,
     else:
         fits = fits.loc[trials.index]
     table, blank = trial_figures(trials, catalysts, fits)
-    return Analysis(table, catalyst_figures(table, catalysts, blank, settings), blank, settings)
+    limits = blank_limits(trials, fits)
+    return Analysis(table, catalyst_figures(table, catalysts, blank, settings, limits), blank, settings)

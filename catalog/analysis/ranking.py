@@ -9,10 +9,14 @@ Distributions
 -------------
 Positive figures (TOF, enhancement, TON, rates, price) are log-normal: the median is the estimate and
 
-.. math:: \\sigma_{\\ln} = \\frac{\\ln x_{high} - \\ln x_{low}}{2 z_{0.975}}
+.. math:: \\ln x = \\ln \\hat x + \\sigma_{\\ln}\\, t_\\nu
 
-from the log-symmetric 95 % interval (only the upper half when the lower limit is 0). Ea is normal with its
-standard error. Figures without an interval are taken as exact. Metrics computed from TOF at the reference
+with the fit's own log-scale standard error and its residual degrees of freedom (Student t; normal when the
+variance is known): TOF at the reference temperature and the rates derived from it use ``tof_ref_log_se`` and
+``tof_ref_dof``, the enhancement ``enhancement_ref_log_se``. A figure without a standard-error column falls back to
+its 95 % interval, :math:`\\sigma_{\\ln} = (\\ln x_{high} - \\ln x_{low})/(2 z_{0.975})` (only the upper half
+when the lower limit is 0) — never a t-based interval divided by the normal quantile, which would widen the draws
+by t/z. Ea is drawn as ``ea + ea_se t_ν`` with ``ea_dof``. Figures without an interval are taken as exact. Metrics computed from TOF at the reference
 temperature (enhancement, rate per mass, per area, per cost) share one standard-normal deviate per catalyst and
 draw, because they are monotone functions of the same estimate; Ea is drawn independently of TOF (the covariance of
 ln TOF(T_ref) and Ea is not kept; it is small when T_ref lies near the middle of the measured range).
@@ -52,7 +56,9 @@ class Metric:
         ``(estimate, low, high)`` columns whose 95 % interval applies to this figure: directly when ``estimate`` is
         ``column``, else relatively (``x·low/estimate``; site count and mass are taken as exact).
     se : str or None
-        Standard-error column; preferred to the interval for a normal figure.
+        Standard-error column on the drawing scale (log scale for a log-scale figure); preferred to the interval.
+    dof : str or None
+        Degrees-of-freedom column of that standard error (Student-t deviates); normal deviates without one.
     source : str
         Figures with the same source share their random deviates (they derive from one estimate).
     per_price : bool
@@ -68,26 +74,30 @@ class Metric:
     source: str
     se: str | None = None
     per_price: bool = False
+    dof: str | None = None
 
 
 _TOF_INTERVAL = ("tof_ref", "tof_ref_low", "tof_ref_high")
 
 #: Registry of rankable figures. Ea ranks lower-is-better: a lower apparent Ea means a rate less sensitive to
 #: temperature, so the catalyst keeps more of its activity when run cooler.
+_TOF_SE = dict(se="tof_ref_log_se", dof="tof_ref_dof")
 METRICS: dict[str, Metric] = {
-    "tof": Metric("TOF at the reference temperature", "1/s", "tof_ref", True, True, _TOF_INTERVAL, "tof_ref"),
+    "tof": Metric("TOF at the reference temperature", "1/s", "tof_ref", True, True, _TOF_INTERVAL, "tof_ref",
+                  **_TOF_SE),
     "enhancement": Metric("Rate over the blank at the reference temperature", "-", "enhancement_ref", True, True,
-                          ("enhancement_ref", "enhancement_ref_low", "enhancement_ref_high"), "tof_ref"),
+                          ("enhancement_ref", "enhancement_ref_low", "enhancement_ref_high"), "tof_ref",
+                          se="enhancement_ref_log_se"),
     "ea": Metric("Apparent activation energy (lower: less temperature-sensitive)", "J/mol", "ea", False, False,
-                 ("ea", "ea_low", "ea_high"), "ea", se="ea_se"),
+                 ("ea", "ea_low", "ea_high"), "ea", se="ea_se", dof="ea_dof"),
     "ton": Metric("Largest TON reached", "-", "ton_max", True, True, None, "ton_max"),
     "rate_per_mass": Metric("Rate per catalyst mass at the reference temperature", "mol/(kg s)", "rate_per_mass_ref",
-                            True, True, _TOF_INTERVAL, "tof_ref"),
+                            True, True, _TOF_INTERVAL, "tof_ref", **_TOF_SE),
     "rate_per_area": Metric("Rate per catalyst surface area at the reference temperature", "mol/(m² s)",
-                            "rate_per_area_ref", True, True, _TOF_INTERVAL, "tof_ref"),
+                            "rate_per_area_ref", True, True, _TOF_INTERVAL, "tof_ref", **_TOF_SE),
     "cost": Metric("Price per gram of catalyst", "money/g", "price_per_gram", False, True, None, "price_per_gram"),
     "rate_per_cost": Metric("Rate per unit of money spent on catalyst", "mol/(s money)", "rate_per_mass_ref", True,
-                            True, _TOF_INTERVAL, "tof_ref", per_price=True),
+                            True, _TOF_INTERVAL, "tof_ref", per_price=True, **_TOF_SE),
 }
 
 
@@ -146,8 +156,11 @@ def metric_values(catalysts: pd.DataFrame, metric: str) -> pd.DataFrame:
         se = _numeric(catalysts, m.se)
         sigma = se.where(np.isfinite(se) & (se >= 0), sigma)
     has_interval = sigma.notna()
+    dof = _numeric(catalysts, m.dof).where(lambda d: d > 0) if m.dof is not None else pd.Series(
+        np.inf, index=catalysts.index)
     return pd.DataFrame({"value": value, "value_low": low, "value_high": high, "centre": centre,
-                         "sigma": sigma.fillna(0.0), "has_interval": has_interval}, index=catalysts.index)
+                         "sigma": sigma.fillna(0.0), "dof": dof.fillna(np.inf), "has_interval": has_interval},
+                        index=catalysts.index)
 
 
 def _non_dominated(goodness: np.ndarray) -> np.ndarray:
@@ -280,7 +293,21 @@ def rank(catalysts: pd.DataFrame, metric: str = "tof", weights: dict | None = No
     # Random deviates per source in a fixed (sorted) order, so the draws do not depend on dict order.
     rng = np.random.default_rng(seed)
     n = len(index)
-    deviates = {source: rng.standard_normal((n_draws, n)) for source in sorted({METRICS[m].source for m in names})}
+    dofs = {}
+    for m in names:  # the first metric of a source that states its dof sets the deviates' dof
+        d = tables[m]["dof"].to_numpy(float)
+        if METRICS[m].dof is not None and METRICS[m].source not in dofs:
+            dofs[METRICS[m].source] = d
+    deviates = {}
+    for source in sorted({METRICS[m].source for m in names}):
+        z = rng.standard_normal((n_draws, n))
+        dof = dofs.get(source, np.full(n, np.inf))
+        finite = np.isfinite(dof)
+        if finite.any():
+            # Student t_nu = z / sqrt(chi2_nu / nu): the fit's own standard error with its residual dof
+            chi2 = rng.chisquare(np.where(finite, dof, 1.0), (n_draws, n))
+            z = np.where(finite, z * np.sqrt(np.where(finite, dof, 1.0) / chi2), z)
+        deviates[source] = z
     point = {m: signs[m] * tables[m]["centre"].to_numpy(float) for m in names}
     drawn = {m: signs[m] * (tables[m]["centre"].to_numpy(float)
                             + tables[m]["sigma"].to_numpy(float) * deviates[METRICS[m].source]) for m in names}

@@ -54,6 +54,7 @@ class Settings:
     plateau_shortfall: float = 0.85
     curvature_p_limit: float = 0.01
     min_temperatures: int = 3
+    induction_z_limit: float = 5.0
 
     def key(self) -> str:
         """A short stable hash of the settings and the code version."""

@@ -103,8 +103,12 @@ def _weighted_line(x, y, var):
     return chi2, intercept, slope, sw, x_bar, y_bar, sxx, w
 
 
-def fit_line(x, y, y_se=None):
-    """Fit ``y = a + b·x`` by (weighted) least squares with a Birge-scaled covariance.
+#: How scatter beyond the stated errors enters a weighted line (see :func:`fit_line`).
+SCATTER_MODELS = ("paule-mandel", "birge")
+
+
+def fit_line(x, y, y_se=None, scatter: str = "paule-mandel"):
+    """Fit ``y = a + b·x`` by (weighted) least squares, widening the covariance for scatter beyond the stated errors.
 
     Weights are :math:`w_i = 1/\\sigma_i^2`. With :math:`\\bar x = \\sum w x/\\sum w` and
     :math:`S_{xx} = \\sum w (x-\\bar x)^2`:
@@ -118,7 +122,11 @@ def fit_line(x, y, y_se=None):
     where, with stated errors, :math:`w_i = 1/(\\sigma_i^2 + \\tau^2)` and :math:`s = 1`: the extra variance
     :math:`\\tau^2 \\ge 0` is zero when the stated errors explain the scatter (:math:`\\chi^2 \\le \\nu`) and
     otherwise solves :math:`\\sum w_i r_i^2 = \\nu` (Paule-Mandel), so replicate scatter widens the interval and
-    smaller scatter never narrows it. Without stated errors :math:`s = \\mathrm{RSS}/\\nu`.
+    smaller scatter never narrows it. With ``scatter='birge'`` the weights stay :math:`1/\\sigma_i^2` and the
+    covariance is multiplied by :math:`\\max(1, \\chi^2/\\nu)` (the Birge ratio squared; Birge, Phys. Rev. 40,
+    207 (1932), from memory): right when the stated errors are the whole story up to a common factor, as for blank
+    trials whose precision spans 100x because their rates do, where an additive variance would flatten the weights
+    and let the least precise point bias the line. Without stated errors :math:`s = \\mathrm{RSS}/\\nu`.
     Centring on :math:`\\bar x` keeps the sums well conditioned for x = 1/T.
 
     Parameters
@@ -127,11 +135,15 @@ def fit_line(x, y, y_se=None):
         Finite 1-D data of equal length, at least two distinct x values.
     y_se : array_like, optional
         Positive finite standard errors of y.
+    scatter : 'paule-mandel' | 'birge'
+        Extra variance shared by every point (default), or the Birge-ratio scaling of the covariance.
 
     Returns
     -------
     LineFit
     """
+    if scatter not in SCATTER_MODELS:
+        raise ValueError(f"scatter must be one of {SCATTER_MODELS}, got {scatter!r}")
     x = np.asarray(x, dtype=float)
     y = np.asarray(y, dtype=float)
     weighted = y_se is not None
@@ -143,7 +155,7 @@ def fit_line(x, y, y_se=None):
     chi2, *_ = _weighted_line(x, y, var)
     birge = np.sqrt(chi2 / dof) if weighted and dof > 0 else np.nan
     tau2 = 0.0
-    if weighted and dof > 0 and chi2 > dof:
+    if weighted and dof > 0 and chi2 > dof and scatter == "paule-mandel":
         # Scatter beyond the stated errors (replicate-to-replicate variation) is a variance component shared by
         # every point, not a multiple of each point's own error: solve sum w_i r_i^2 = nu with w_i = 1/(se_i^2 +
         # tau^2) (Paule and Mandel 1982). Scaling the covariance instead would let the few most precise points
@@ -153,7 +165,7 @@ def fit_line(x, y, y_se=None):
     chi2, intercept, slope, sw, x_bar, y_bar, sxx, w = _weighted_line(x, y, var + tau2)
     tss = float((w * (y - y_bar) ** 2).sum())
     if weighted:
-        scale = 1.0
+        scale = max(1.0, chi2 / dof) if scatter == "birge" and dof > 0 else 1.0
         coverage = stats.t.ppf(0.5 + CONFIDENCE / 2, dof) if dof > 0 else Z95
     else:
         birge = np.nan
@@ -292,7 +304,7 @@ def _curvature_p(x, y, w, chi2_line, n_temperatures):
     return float(stats.f.sf(max(f, 0.0), 1, n - 3))
 
 
-def fit_arrhenius(T, k, k_se=None):
+def fit_arrhenius(T, k, k_se=None, scatter: str = "paule-mandel"):
     """Fit the Arrhenius equation by weighted least squares of ln k on 1/T.
 
     .. math:: \\ln k = \\ln A - \\frac{E_a}{R}\\,\\frac{1}{T},\\qquad
@@ -312,6 +324,8 @@ def fit_arrhenius(T, k, k_se=None):
         Rate constants or initial rates (any consistent unit; A comes out in the same unit).
     k_se : array_like, optional
         Standard errors of k, same unit.
+    scatter : 'paule-mandel' | 'birge'
+        How scatter beyond the stated errors enters (:func:`fit_line`); the blank model uses 'birge'.
 
     Returns
     -------
@@ -327,7 +341,7 @@ def fit_arrhenius(T, k, k_se=None):
     x = 1.0 / T
     y = np.log(k)
     y_se = None if se is None else se / k
-    line = fit_line(x, y, y_se)
+    line = fit_line(x, y, y_se, scatter)
     # (ln A, Ea) = (a, −R b): a linear map J of (a, b).
     jac = np.diag([1.0, -R])
     cov = jac @ line.cov @ jac.T

@@ -28,10 +28,13 @@ def photon_flux(power_W, wavelength_m):
     return np.asarray(power_W, dtype=float) * np.asarray(wavelength_m, dtype=float) / (h * c * N_A)
 
 
-def apparent_quantum_yield(r0, photon_flux, electrons_per_molecule=1):
-    """Apparent quantum yield: electrons used by the product per incident photon.
+def apparent_quantum_yield(r0, photon_flux, dark_rate=0.0, electrons_per_molecule=1):
+    """Apparent quantum yield: electrons used by the light-induced product per incident photon.
 
-    .. math:: \\mathrm{AQY} = \\frac{n_e\\,r}{q_p}
+    .. math:: \\mathrm{AQY} = \\frac{n_e\\,(r_\\mathrm{light} - r_\\mathrm{dark})}{q_p}
+
+    Only the rate the light adds counts: the dark rate (the catalyst's own dark rate, which holds the blank, or the
+    blank alone) is subtracted first, on the same product basis as ``r0``.
 
     With ``n_e = 1`` this is the IUPAC photonic efficiency, rate over incident photon flux (IUPAC Glossary of
     terms used in photochemistry, 3rd ed., Pure Appl. Chem. 79, 293 (2007); cited from memory). The electron
@@ -42,9 +45,11 @@ def apparent_quantum_yield(r0, photon_flux, electrons_per_molecule=1):
     Parameters
     ----------
     r0 : float or array_like
-        Rate of product formation, mol/s.
+        Rate of product formation under illumination, mol/s.
     photon_flux : float or array_like
         Incident photon flux, mol photons/s (see :func:`photon_flux`).
+    dark_rate : float or array_like, default 0
+        Rate of product formation in the dark under the same conditions, mol/s.
     electrons_per_molecule : int or array_like, default 1
         Electrons transferred per product molecule.
 
@@ -53,4 +58,5 @@ def apparent_quantum_yield(r0, photon_flux, electrons_per_molecule=1):
     float or ndarray
         Dimensionless yield (multiply by 100 for %).
     """
-    return electrons_per_molecule * np.asarray(r0, dtype=float) / np.asarray(photon_flux, dtype=float)
+    induced = np.asarray(r0, dtype=float) - np.asarray(dark_rate, dtype=float)
+    return electrons_per_molecule * induced / np.asarray(photon_flux, dtype=float)

@@ -16,6 +16,7 @@ __all__ = [
     "mears",
     "thiele_modulus_sphere",
     "weisz_prater",
+    "weisz_prater_limit",
 ]
 
 # Below this N_WP internal diffusion does not limit the rate for the usual range of orders
@@ -25,6 +26,30 @@ WEISZ_PRATER_LIMIT = 0.3
 WEISZ_PRATER_LIMIT_FIRST_ORDER = 1.0
 # External (film) mass transfer is negligible below this (Mears, Ind. Eng. Chem. Process Des. Dev. 10, 541 (1971)).
 MEARS_LIMIT = 0.15
+
+# Zero order in a sphere: C(r) = C_s - k0 (R^2 - r^2)/(6 D), so the centre stays wet while N_WP = k0 R^2/(C_s D) < 6
+# (derived here, radius convention).
+_WP_ZERO_ORDER = 6.0
+
+
+def weisz_prater_limit(order):
+    """Largest Weisz-Prater number (radius convention) at which pore diffusion costs at most 5 % of the rate.
+
+    .. math::
+        n \\le 0:\\; N_\\mathrm{WP} < 6 \\quad\\text{(exact: the particle centre still sees reactant)}
+
+        n > 0:\\;  N_\\mathrm{WP} < \\frac{0.95 \\times 1.5}{n + 1}
+
+    For n > 0: with the generalised modulus :math:`\\phi_n^2 = \\tfrac{n+1}{2}\\phi^2` (Bischoff, AIChE J.
+    11, 351 (1965), from memory) and the small-modulus series of :func:`effectiveness_sphere`,
+    :math:`\\eta \\approx 1 - \\phi_n^2/15 \\ge 0.95` gives :math:`\\phi^2 \\le 1.5/(n+1)` and
+    :math:`N_\\mathrm{WP} = \\eta\\phi^2`: 0.71 for first order, 0.48 for second. NaN order gives NaN (the
+    caller then uses its order-free limit, :data:`WEISZ_PRATER_LIMIT`).
+    """
+    n = np.asarray(order, dtype=float)
+    limit = np.where(n <= 0, _WP_ZERO_ORDER, 0.95 * 1.5 / (np.maximum(n, 0) + 1.0))
+    return np.where(np.isfinite(n), limit, np.nan)[()]
+
 
 # Below this φ the closed form loses digits to cancellation (relative error ~ 3ε/φ²); the four-term series is
 # accurate there to the next term, 2φ⁸/31185 < 1e-14.
