@@ -57,9 +57,6 @@ PLATEAU_WELL_DETERMINED = 0.05
 #: ... and counts as short when below n_max by more than this fraction and by more than 3 of its standard errors
 #: (a few per cent is within the usual calibration of a burette or a charge; common practice, no source).
 PLATEAU_MARGIN = 0.05
-#: An induction period needs the largest local rate to exceed the fitted r0 by this factor as well as being
-#: significant (common practice, no source).
-INDUCTION_RATIO = 1.5
 
 #: code → (title, what it means and what to do).
 FLAG_CODES: dict[str, tuple[str, str]] = {
@@ -257,11 +254,12 @@ def _trial_flags(trials: pd.DataFrame, settings) -> list[dict]:
     for tid in trials.index[leak > 0]:
         out.append(_flag("trial", tid, "leak", f"The readings fall after the trace's maximum; the last "
                          f"{leak[tid]:.0f} were left out of the fit.", leak[tid], 0.0))
-    for tid in trials.index[catalysed & (induction_z > s.induction_z_limit) & (max_rate > INDUCTION_RATIO * r0)]:
+    for tid in trials.index[catalysed & (induction_z > s.induction_z_limit)]:
         out.append(_flag("trial", tid, "induction-period",
-                         f"The largest local rate, {max_rate[tid]:.3g} mol/s, is {max_rate[tid] / r0[tid]:.1f} times "
-                         f"the fitted initial rate (z = {induction_z[tid]:.1f} over the first readings, limit "
-                         f"{s.induction_z_limit:g}).", induction_z[tid], s.induction_z_limit))
+                         f"The local rate rises to {max_rate[tid]:.3g} mol/s, well above the rate of the first "
+                         f"readings (z = {induction_z[tid]:.1f}, limit {s.induction_z_limit:g}); the fitted initial "
+                         f"rate {r0[tid]:.3g} mol/s does not describe the working catalyst.", induction_z[tid],
+                         s.induction_z_limit))
     for tid in trials.index[~catalysed & undetected]:
         out.append(_flag("trial", tid, "blank-not-detected",
                          f"Blank rate {r0[tid]:.3g} mol/s is within {Z95:.2f} standard errors of zero.",

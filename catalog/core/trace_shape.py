@@ -19,7 +19,8 @@ cautious.
   .. math:: z = \frac{r_\max - r_\mathrm{first}}{\sqrt{\mathrm{se}_\max^2 + \mathrm{se}_\mathrm{first}^2}},
             \qquad \mathrm{se} = \hat\sigma \sqrt{\frac{w}{w S_{tt} - S_t^2}}
 
-  is large when the trace starts slowly and then accelerates (a sigmoidal start), which no integrated rate law
+  (set to 0 unless r_max also exceeds :data:`INDUCTION_RATIO` times r_first) is large when the trace starts slowly
+  and then accelerates (a sigmoidal start), which no integrated rate law
   here describes: r0 from the fit is then not the catalyst's rate, and the largest local rate is reported beside it.
 """
 
@@ -27,7 +28,11 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["LEAK_DROP_SIGMA", "induction", "leak_cut", "noise_sd"]
+__all__ = ["INDUCTION_RATIO", "LEAK_DROP_SIGMA", "induction", "leak_cut", "noise_sd"]
+
+#: A slow start needs the largest local rate to exceed the first window's by this factor as well as significantly;
+#: z is reported as 0 below it (common practice, no source).
+INDUCTION_RATIO = 1.5
 
 #: Drop below the running-mean peak, in noise sd, that counts as a fall in product (about 4 sd: a clean plateau's
 #: peak-to-end difference rarely exceeds 2 sd; common practice, no source).
@@ -96,4 +101,5 @@ def induction(T, Y, W):
     enough = valid.sum(1) >= 2
     r_max = np.where(enough, slope[rows, best], np.nan)
     z = (r_max - slope[:, 0]) / np.hypot(se[rows, best], se[:, 0])
+    z = np.where(r_max > INDUCTION_RATIO * np.maximum(slope[:, 0], 0.0), z, 0.0)
     return r_max, np.where(enough, z, np.nan)

@@ -271,7 +271,8 @@ def _assemble(plan, catalysts, truth, rng, noise):
     ``plan`` holds the v1 trial columns (CSV units) plus private kinetic columns: ``_metal``, ``_loading``,
     ``_dispersion``, ``_site_density`` (catalyst columns joined), ``_tof_std`` (1/s at the trial temperature and
     c_std, including replicate scatter and light gain), ``_tau`` (s), ``_photo``, ``_duration`` (s), ``_points``,
-    ``_baseline`` (signal unit).
+    ``_baseline`` (signal unit); optionally ``_t_first`` (first reading as a fraction of the duration), ``_lag``
+    (s, induction time constant) and ``_leak`` (fraction of the full yield lost by the end).
     """
     T = plan["temperature [degC]"].to_numpy(float) + zero_Celsius
     blank = plan["catalyst_id"].isna().to_numpy()
@@ -283,10 +284,23 @@ def _assemble(plan, catalysts, truth, rng, noise):
 
     points = plan["_points"].to_numpy(int)
     index = np.repeat(np.arange(len(plan)), points)
-    # Evenly spaced readings from 0 to the trial's duration, logged to 0.1 s.
-    fraction = np.concatenate([np.linspace(0.0, 1.0, p) for p in points])
-    t = _round_to(fraction * plan["_duration"].to_numpy(float)[index], 0.1)
-    n = ratio[index] * n_lim[index] * _converted(t, k_blank[index], k_cat0[index], tau[index])
+    # Evenly spaced readings from the first reading (0 unless the plan says later) to the trial's duration, logged
+    # to 0.1 s.
+    first = _optional(plan, "_t_first", 0.0)
+    fraction = np.concatenate([np.linspace(f, 1.0, p) for f, p in zip(first, points)])
+    duration = plan["_duration"].to_numpy(float)
+    t = _round_to(fraction * duration[index], 0.1)
+    # An induction period: activity ramps up as 1 - exp(-t/lag), so the kinetics run on the warped clock
+    # t - lag (1 - exp(-t/lag)).
+    lag = _optional(plan, "_lag", 0.0)[index]
+    lag_safe = np.where(lag > 0, lag, 1.0)
+    t_kin = np.where(lag > 0, t + lag_safe * np.expm1(-t / lag_safe), t)
+    n = ratio[index] * n_lim[index] * _converted(t_kin, k_blank[index], k_cat0[index], tau[index])
+    # A leak: from 70 % of the duration on, the collected product falls linearly by the given fraction of the
+    # charge's full yield by the end (the chemistry is unchanged; the vessel loses gas).
+    leak = _optional(plan, "_leak", 0.0)[index]
+    start = 0.7 * duration[index]
+    n = n - leak * ratio[index] * n_lim[index] * np.clip((t - start) / (duration[index] - start), 0.0, 1.0)
     mode = plan["measurement"].map({m: i for i, m in enumerate(_MODE_NAMES)}).to_numpy(int)[index]
     clean = _signal(
         mode, n, plan["_baseline"].to_numpy(float)[index], T[index],
@@ -328,6 +342,11 @@ def _assemble(plan, catalysts, truth, rng, noise):
         truth=truth.reset_index(drop=True),
         trial_truth=trial_truth,
     )
+
+
+def _optional(plan, column, default):
+    """A private plan column as floats, or ``default`` everywhere when the plan does not have it."""
+    return plan[column].to_numpy(float) if column in plan.columns else np.full(len(plan), float(default))
 
 
 def _instrument_columns(rng, modes, n_lim_mmol, liquid_mL):
