@@ -24,6 +24,9 @@ Sources of the thresholds (values live in :class:`catalog.analysis.Settings`)
 - loading series at constant dispersion: ln(rate per mass) against ln(sites per mass) has slope 1 under kinetic
   control and about 0.5 under strong pore diffusion (Koros and Nowak, Chem. Eng. Sci. 22, 470 (1967); Madon and
   Boudart, Ind. Eng. Chem. Fundam. 21, 438 (1982));
+- Arrhenius curvature at p < 0.001: a campaign tests every catalyst, so a 1 % level would flag about one clean
+  catalyst in a hundred by chance; 0.1 % keeps the campaign-wide false-alarm rate near 10 % for a hundred
+  catalysts (a Bonferroni-style choice, common practice, no source);
 - adiabatic temperature rise bands 50 K and 200 K (Stoessel, Thermal Safety of Chemical Processes, 2008).
 """
 

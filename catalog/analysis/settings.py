@@ -52,7 +52,7 @@ class Settings:
     runs_z_limit: float = 3.0
     late_residual_z_limit: float = -3.0
     plateau_shortfall: float = 0.85
-    curvature_p_limit: float = 0.01
+    curvature_p_limit: float = 0.001
     min_temperatures: int = 3
     induction_z_limit: float = 5.0
 

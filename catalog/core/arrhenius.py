@@ -122,7 +122,10 @@ def fit_line(x, y, y_se=None, scatter: str = "paule-mandel"):
     where, with stated errors, :math:`w_i = 1/(\\sigma_i^2 + \\tau^2)` and :math:`s = 1`: the extra variance
     :math:`\\tau^2 \\ge 0` is zero when the stated errors explain the scatter (:math:`\\chi^2 \\le \\nu`) and
     otherwise solves :math:`\\sum w_i r_i^2 = \\nu` (Paule-Mandel), so replicate scatter widens the interval and
-    smaller scatter never narrows it. With ``scatter='birge'`` the weights stay :math:`1/\\sigma_i^2` and the
+    smaller scatter never narrows it; when an extra variance was needed, the covariance is scaled up, if need be,
+    so that the slope is never more certain than the unweighted fit with its residual variance says (the extra
+    variance is estimated from few residuals, and the plain Paule-Mandel covariance then covers too rarely: about
+    94 % for a nominal 95 % with 15 points in our known-truth campaigns). With ``scatter='birge'`` the weights stay :math:`1/\\sigma_i^2` and the
     covariance is multiplied by :math:`\\max(1, \\chi^2/\\nu)` (the Birge ratio squared; Birge, Phys. Rev. 40,
     207 (1932), from memory): right when the stated errors are the whole story up to a common factor, as for blank
     trials whose precision spans 100x because their rates do, where an additive variance would flatten the weights
@@ -171,6 +174,13 @@ def fit_line(x, y, y_se=None, scatter: str = "paule-mandel"):
         birge = np.nan
         scale = chi2 / dof if dof > 0 else np.nan
         coverage = stats.t.ppf(0.5 + CONFIDENCE / 2, dof) if dof > 0 else np.nan
+    if weighted and tau2 > 0:
+        # The extra variance is itself estimated from nu residuals, and the Paule-Mandel covariance ignores that
+        # uncertainty, so with few points it covers too rarely. Never report a slope more certain than the
+        # unweighted fit with its own residual variance says (a weighting-free check): scale the covariance up to it.
+        r_ols = np.polyfit(x, y, 1, full=True)[1]
+        var_ols = float(r_ols[0]) / dof / float(((x - x.mean()) ** 2).sum()) if len(r_ols) else 0.0
+        scale = max(scale, var_ols * sxx)
     var_b = scale / sxx
     cov = np.array([[scale / sw + x_bar**2 * var_b, -x_bar * var_b], [-x_bar * var_b, var_b]])
     return LineFit(
