@@ -152,6 +152,25 @@ CREATE TABLE flags (
 );
 """,
     ),
+    (
+        4,
+        "rate fits: fixed plateau, model weight, leak cut, induction; blank bounds and log-scale errors",
+        """
+ALTER TABLE trial_fits ADD COLUMN plateau_fixed BOOLEAN;
+ALTER TABLE trial_fits ADD COLUMN model_weight DOUBLE;
+ALTER TABLE trial_fits ADD COLUMN leak_cut INTEGER;
+ALTER TABLE trial_fits ADD COLUMN max_rate DOUBLE;
+ALTER TABLE trial_fits ADD COLUMN induction_z DOUBLE;
+ALTER TABLE trial_results ADD COLUMN blank_undetected BOOLEAN;
+ALTER TABLE trial_results ADD COLUMN enhancement_bound BOOLEAN;
+ALTER TABLE catalyst_results ADD COLUMN tof_ref_log_se DOUBLE;
+ALTER TABLE catalyst_results ADD COLUMN tof_ref_dof DOUBLE;
+ALTER TABLE catalyst_results ADD COLUMN ea_dof DOUBLE;
+ALTER TABLE catalyst_results ADD COLUMN enhancement_ref_log_se DOUBLE;
+ALTER TABLE catalyst_results ADD COLUMN enhancement_ref_bound BOOLEAN;
+ALTER TABLE catalyst_results ADD COLUMN weisz_prater_limit DOUBLE;
+""",
+    ),
 )
 
 

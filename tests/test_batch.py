@@ -68,7 +68,7 @@ def test_curve_values_match_reference_curves(campaign):
     traces, refs, df = campaign
     trial, t, _, _ = _long(traces)
     fitted = curve_values(df, trial, t)
-    for i, ((ti, _, _), ref) in enumerate(zip(traces, refs)):
+    for i, ((ti, _, _), ref) in enumerate(zip(traces, refs, strict=False)):
         np.testing.assert_allclose(fitted[trial == i], model_curve(ref, ti), rtol=1e-7, atol=1e-12)
 
 

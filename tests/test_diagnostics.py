@@ -1,4 +1,5 @@
-"""Tests for catalog.analysis.diagnostics: each flag on a hand-built case, silence on clean data, the demo's known problems."""
+"""Tests for catalog.analysis.diagnostics: each flag on a hand-built case, silence on clean data, the demo's known
+problems."""
 
 from __future__ import annotations
 
@@ -113,7 +114,7 @@ def test_blank_trials_get_fit_flags_but_no_catalyst_flags():
     ({"n_temperatures": 3, "ea": np.nan}, "no-ea"),
     ({"n_temperatures": 2}, "few-temperatures"),
     ({"tof_ref_extrapolated": True, "t_min": 318.15}, "ref-outside-range"),
-    ({"curvature_p": 0.001}, "arrhenius-curvature"),
+    ({"curvature_p": 0.0005}, "arrhenius-curvature"),
     ({"max_adiabatic_rise": 80.0}, "thermal-hazard"),
 ])
 def test_each_catalyst_flag_fires_on_its_case(change, code):
@@ -217,7 +218,7 @@ def _loading_rows(phi_first):
     tof = 2.0 * eta
     return [{"metal_loading": w, "rate_per_mass_ref": t * s, "tof_ref": t, "tof_ref_low": 0.95 * t,
              "tof_ref_high": 1.05 * t, "description": "Pd on alumina, loading series"}
-            for w, s, t in zip(loading, sites, tof)]
+            for w, s, t in zip(loading, sites, tof, strict=False)]
 
 
 def test_unrelated_catalysts_sharing_metal_and_support_are_no_series():

@@ -93,7 +93,8 @@ def catalyst_figures(trial_table: pd.DataFrame, catalysts: pd.DataFrame, blank, 
         row["replicate_cv"] = replicate_cv(T[main], group["tof"].to_numpy(float)[main])
         row |= _order_row(group)
         row["median_sites"] = n_sites
-        row["min_enhancement"] = float(np.nanmin(group["enhancement"])) if group["enhancement"].notna().any() else np.nan
+        row["min_enhancement"] = (float(np.nanmin(group["enhancement"])) if group["enhancement"].notna().any()
+                                  else np.nan)
         row["max_weisz_prater"] = _nanmax(group["weisz_prater"])
         # Trials assume first order (M is linear in the order n); the catalyst row uses the measured order when a
         # concentration series gave one, and the Weisz-Prater limit for that order.
@@ -131,7 +132,7 @@ def standard_series(group: pd.DataFrame) -> np.ndarray:
     # Illuminated trials measure a different (photo-assisted) rate: they never join the dark series.
     lit = np.nan_to_num(group["light_power"].to_numpy(float)) > 0
     key = np.array([f"{'lit' if on else 'dark'} {x} {'' if np.isfinite(x) else a}"
-                    for on, x, a in zip(lit, level, amount)])
+                    for on, x, a in zip(lit, level, amount, strict=False)])
     labels = _set_points(group["temperature"].to_numpy(float))
     best, best_score = None, (-1, -1)
     for value in np.unique(key):

@@ -16,7 +16,8 @@ variance is known): TOF at the reference temperature and the rates derived from 
 ``tof_ref_dof``, the enhancement ``enhancement_ref_log_se``. A figure without a standard-error column falls back to
 its 95 % interval, :math:`\\sigma_{\\ln} = (\\ln x_{high} - \\ln x_{low})/(2 z_{0.975})` (only the upper half
 when the lower limit is 0) — never a t-based interval divided by the normal quantile, which would widen the draws
-by t/z. Ea is drawn as ``ea + ea_se t_ν`` with ``ea_dof``. Figures without an interval are taken as exact. Metrics computed from TOF at the reference
+by t/z. Ea is drawn as ``ea + ea_se t_ν`` with ``ea_dof``. Figures without an interval are taken as exact.
+Metrics computed from TOF at the reference
 temperature (enhancement, rate per mass, per area, per cost) share one standard-normal deviate per catalyst and
 draw, because they are monotone functions of the same estimate; Ea is drawn independently of TOF (the covariance of
 ln TOF(T_ref) and Ea is not kept; it is small when T_ref lies near the middle of the measured range).
@@ -369,7 +370,7 @@ def rank(catalysts: pd.DataFrame, metric: str = "tof", weights: dict | None = No
 def _notes(index, names, tables, has_value, excluded_by, demoted_by) -> list[str]:
     """Why a catalyst is unranked or demoted, and which figures had no interval (drawn as exact)."""
     notes = []
-    for i, cid in enumerate(index):
+    for i in range(len(index)):
         parts = []
         if excluded_by.iloc[i]:
             parts.append("excluded: flagged " + ", ".join(sorted(excluded_by.iloc[i])))

@@ -125,7 +125,8 @@ def fit_line(x, y, y_se=None, scatter: str = "paule-mandel"):
     smaller scatter never narrows it; when an extra variance was needed, the covariance is scaled up, if need be,
     so that the slope is never more certain than the unweighted fit with its residual variance says (the extra
     variance is estimated from few residuals, and the plain Paule-Mandel covariance then covers too rarely: about
-    94 % for a nominal 95 % with 15 points in our known-truth campaigns). With ``scatter='birge'`` the weights stay :math:`1/\\sigma_i^2` and the
+    94 % for a nominal 95 % with 15 points in our known-truth campaigns). With ``scatter='birge'`` the weights
+    stay :math:`1/\\sigma_i^2` and the
     covariance is multiplied by :math:`\\max(1, \\chi^2/\\nu)` (the Birge ratio squared; Birge, Phys. Rev. 40,
     207 (1932), from memory): right when the stated errors are the whole story up to a common factor, as for blank
     trials whose precision spans 100x because their rates do, where an additive variance would flatten the weights
@@ -322,7 +323,8 @@ def fit_arrhenius(T, k, k_se=None, scatter: str = "paule-mandel"):
 
     With standard errors, replicate scatter beyond the stated errors enters as an extra variance τ² added to every
     point (Paule-Mandel, see :func:`fit_line`), so it widens the interval, while scatter smaller than stated never
-    narrows it; ``birge`` reports how far the stated errors alone fall short. Without standard errors it is ordinary least squares with the residual variance. Intervals are
+    narrows it; ``birge`` reports how far the stated errors alone fall short. Without standard errors it is
+    ordinary least squares with the residual variance. Intervals are
     ``estimate ± t(0.975, n−2)·se``; with standard errors that already explain the scatter this is conservative
     (coverage a little above 95 %), which we prefer to an interval that trusts the stated errors blindly.
 

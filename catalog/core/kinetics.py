@@ -185,7 +185,7 @@ def curvature_basis(model: str, kappa, u, derivatives: int = 0) -> tuple:
         phis.append(-(em + 2.0 * phis[1]) / xs)
     if small.any():
         xsmall = x[small]
-        for phi, coef in zip(phis, (_PHI1, _PHI1_D1, _PHI1_D2)):
+        for phi, coef in zip(phis, (_PHI1, _PHI1_D1, _PHI1_D2), strict=False):
             phi[small] = np.polynomial.polynomial.polyval(xsmall, coef)
     return tuple(u ** (i + 1) * phi for i, phi in enumerate(phis))
 
@@ -261,7 +261,8 @@ def normalise(T, Y, W, offset: bool = True):
     big = np.where(big > 0, big, 1.0)
     X = np.where(W, Y / big[:, None], 0.0)
     c = X.sum(axis=1) / np.maximum(n, 1) if offset else np.zeros(len(n))
-    s = np.max(np.where(W, X, -np.inf), axis=1, initial=-np.inf) - np.min(np.where(W, X, np.inf), axis=1, initial=np.inf)
+    s = (np.max(np.where(W, X, -np.inf), axis=1, initial=-np.inf)
+         - np.min(np.where(W, X, np.inf), axis=1, initial=np.inf))
     s = np.where(np.isfinite(s) & (s > 0), s, 1.0)
     Yn = np.where(W, (X - c[:, None]) / s[:, None], 0.0)
     return U, Yn, c * big, s * big, tmax
@@ -326,8 +327,9 @@ def _fit_zero(u, y, offset=True) -> dict:
         g = np.minimum(u, best_tau)
         a_b, r_b, rss_b = _lstsq(g, y, offset)
         free = np.array([offset, True, True])
-        out["zero_break"] = _finish_fit(a_b, r_b, best_tau, rss_b, np.column_stack((np.ones(n), g, r_b * (u > best_tau))),
-                                        free, True, n_penalty=free.sum() - 1 + CHANGE_POINT_PENALTY)
+        jac = np.column_stack((np.ones(n), g, r_b * (u > best_tau)))
+        out["zero_break"] = _finish_fit(a_b, r_b, best_tau, rss_b, jac, free, True,
+                                        n_penalty=free.sum() - 1 + CHANGE_POINT_PENALTY)
     return out
 
 
@@ -433,7 +435,8 @@ def fit_trace(t, amount, n_max: float = float("nan"), models=MODELS, offset: boo
 
 def curve_theta(code, r0, k, plateau) -> np.ndarray:
     """Physical curvature of each fit from its reported fields: tau = P_inf/r0, k, or b = r0/P_inf."""
-    code, r0, k, plateau = np.broadcast_arrays(np.asarray(code), *(np.asarray(v, dtype=float) for v in (r0, k, plateau)))
+    code, r0, k, plateau = np.broadcast_arrays(np.asarray(code),
+                                               *(np.asarray(v, dtype=float) for v in (r0, k, plateau)))
     return np.select([code == 0, code == 1, code == 2], [plateau / r0, k, r0 / plateau], np.nan)
 
 

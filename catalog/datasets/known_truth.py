@@ -66,7 +66,7 @@ def known_truth_campaign(seed: int = 0, n_catalysts: int = 10, minutes: bool = F
     supports = ("C", "Al2O3", "TiO2", "SiO2", "CeO2")
     order = rng.permutation(n_catalysts)
     eas = rng.permutation(np.linspace(35e3, 75e3, n_catalysts))
-    trap_of = dict(zip(rng.choice(n_catalysts, len(TRAPS), replace=False), TRAPS))
+    trap_of = dict(zip(rng.choice(n_catalysts, len(TRAPS), replace=False), TRAPS, strict=False))
     specs = []
     for i in range(n_catalysts):
         metal, support = metals[i % len(metals)], supports[i % len(supports)]

@@ -228,7 +228,7 @@ def _noisy(rng, mode, clean, noise):
 
     The relative part uses the reading itself; only the analyser has one, and its baseline is small.
     """
-    _, absolute, relative, resolution = (np.array(c) for c in zip(*_MODES.values()))
+    _, absolute, relative, resolution = (np.array(c) for c in zip(*_MODES.values(), strict=False))
     sd = noise * (absolute[mode] + relative[mode] * np.abs(clean))
     noisy = clean + sd * rng.standard_normal(clean.shape)
     step = resolution[mode]
@@ -287,7 +287,7 @@ def _assemble(plan, catalysts, truth, rng, noise):
     # Evenly spaced readings from the first reading (0 unless the plan says later) to the trial's duration, logged
     # to 0.1 s.
     first = _optional(plan, "_t_first", 0.0)
-    fraction = np.concatenate([np.linspace(f, 1.0, p) for f, p in zip(first, points)])
+    fraction = np.concatenate([np.linspace(f, 1.0, p) for f, p in zip(first, points, strict=False)])
     duration = plan["_duration"].to_numpy(float)
     t = _round_to(fraction * duration[index], 0.1)
     # An induction period: activity ramps up as 1 - exp(-t/lag), so the kinetics run on the warped clock
