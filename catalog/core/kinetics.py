@@ -21,19 +21,22 @@ curvature is bounded below by zero (the rate laws only slow down). For a fixed c
   kappa = k t_max or b t_max) and refined with ``scipy.optimize.least_squares`` inside the two grid cells around the
   best grid point;
 - zero order: the breakpoint tau is found exactly (Hudson 1966, segmented regression with a continuous join) by
-  enumerating the intervals between data times; the straight line (plateau not reached, two parameters) competes
-  with the broken line (three parameters) by AIC.
+  enumerating the intervals between data times; the straight line (plateau not reached) and the broken line are
+  separate candidates;
+- with n_max known, first and second order also with the plateau held at n_max (:mod:`catalog.core.plateau_fit`).
 
-Models are chosen by the Gaussian AIC = n ln(RSS/n) + 2p (plain AIC, not AICc) with p = 3 (a, r0, curvature), and
-p = 2 for the zero-order straight line. Standard errors come from the Jacobian,
+``offset=False`` drops the offset a (the curve passes through the origin, one parameter fewer). Candidates are
+chosen, and r0's standard error widened by model-selection uncertainty, in :mod:`catalog.core.selection` (AICc,
+change-point penalty, plateau above n_max rejected, Akaike weights). Standard errors come from the Jacobian,
 cov = s^2 (J^T J)^{-1} with s^2 = RSS/(n - p) (as ``curve_fit(absolute_sigma=False)``). When no model can be fitted
 (fewer than :data:`MIN_MODEL_POINTS` points, fits at the curvature bound, singular Jacobian) the initial slope of the
-early low-conversion window is fitted instead (``model='initial_slope'``); with fewer than :data:`MIN_SLOPE_POINTS`
-usable points the result is ``model='none'``.
+early low-conversion window is fitted instead (``model='initial_slope'``); with fewer than three usable points the
+result is ``model='none'``. Before fitting, :mod:`catalog.core.trace_shape` cuts a leak after the maximum and
+measures a slow start.
 
-:mod:`catalog.core.batch` runs the same fits vectorised over many trials; the post-processing below (normalisation,
-model choice, fallback, derived quantities, residual diagnostics) works on padded 2-D arrays and is shared by both,
-so that only the fitting cores differ and can be checked against each other.
+:mod:`catalog.core.batch` runs the same fits vectorised over many trials; normalisation, the shape checks, model
+choice, fallback, derived quantities and residual diagnostics work on padded 2-D arrays and are shared by both, so
+that only the fitting cores differ and can be checked against each other.
 """
 
 from __future__ import annotations
@@ -77,7 +80,8 @@ class TraceFit:
     Attributes
     ----------
     model : 'zero' | 'first' | 'second' | 'initial_slope' | 'none'
-    r0, r0_se : initial rate of product formation dP/dt(0) and its standard error, mol/s.
+    r0, r0_se : initial rate of product formation dP/dt(0), mol/s, and its standard error including the spread of
+        the competing candidates (Akaike-weighted, catalog.core.selection).
     k, k_se : rate constant of the chosen model: r0 (mol/s) for zero order, k (1/s) for first order,
         k2 = b^2/r0 (1/(mol s), amount basis) for second order; NaN for the fallbacks.
     k_unit : 'mol/s' | '1/s' | '1/(mol*s)' | ''.
@@ -92,7 +96,7 @@ class TraceFit:
     final_conversion : final_amount / n_max (NaN unless n_max > 0).
     r2, rmse : coefficient of determination and root-mean-square residual (mol) of the chosen fit (over the
         fallback window for ``initial_slope``).
-    aic : model -> AIC = n ln(RSS/n) + 2p (RSS in mol^2) for every model tried; NaN where it failed.
+    aic : model -> best AICc of that rate law's candidates (RSS in mol^2); NaN where none survived.
     n_points : finite points with t >= 0 that were used.
     late_residual_z : mean residual (data - model) of the last ceil(n/3) points over its standard error
         s/sqrt(n_late); negative when the trace falls below the model late (deactivation).
@@ -387,7 +391,7 @@ def check_models(models) -> tuple:
 
 
 def fit_trace(t, amount, n_max: float = float("nan"), models=MODELS, offset: bool = True) -> TraceFit:
-    """Fit the integrated rate laws to one trace and return the AICc-best one (see the module docstring).
+    """Fit the integrated rate laws to one trace and return the AICc-best candidate (see the module docstring).
 
     Parameters
     ----------
