@@ -89,3 +89,27 @@ def test_twelve_known_truth_campaigns(tmp_path):
     assert len(clean) == 72
     assert (clean["ea_err"].abs() <= 1.5).mean() >= 0.90
     assert clean["ea_in"].mean() >= 0.90
+
+
+def test_flat_blank_gives_an_enhancement_lower_bound(tmp_path):
+    # Edge case: the blanks at and below the reference temperature read flat (only noise). Their rates are not
+    # detected, so the enhancement at T_REF is a lower bound on the catalyst row, never a number.
+    truth = known_truth_campaign(seed=4)
+    trials = truth.trials.set_index("trial_id")
+    flat = trials.index[trials["catalyst_id"].isna() & (trials["temperature [degC]"] <= 35.0)]
+    traces = truth.traces.copy()
+    rng = np.random.default_rng(0)
+    at = traces["trial_id"].isin(flat)
+    first = traces[at].groupby("trial_id")["value"].transform("first")
+    traces.loc[at, "value"] = np.round(first + rng.normal(0.0, 0.05, at.sum()), 2)  # burette noise 0.05 mL
+    folder = tmp_path / "flat"
+    write_campaign(type(truth)(truth.catalysts, truth.trials, traces, truth.truth, truth.trial_truth), folder)
+    db = tmp_path / "flat.duckdb"
+    store.import_campaign(db, campaign.read_source(folder))
+    got = results.get_results(db, Settings(reference_temperature=T_REF))
+    cats = got.catalysts
+    assert cats["enhancement_ref"].isna().all()
+    assert (cats["enhancement_ref_low"] > 1).all()
+    flags = got.flags
+    assert set(flags.loc[flags["code"] == "blank-not-detected", "record_id"]) == set(flat)
+    assert set(flags.loc[flags["code"] == "enhancement-bound", "record_id"]) == set(cats.index)
