@@ -20,7 +20,7 @@ from catalog.analysis import results
 from catalog.analysis.settings import Settings
 from catalog.datasets.known_truth import TRAPS, known_truth_campaign
 from catalog.datasets.synth import write_campaign
-from catalog.ingest import campaign
+from catalog.ingest import sources
 
 R = 8.314462618  # J/(mol K), CODATA 2018 exact (scipy.constants.R)
 T_REF = 308.15
@@ -47,7 +47,7 @@ def _run(tmp_path, seed):
     folder = tmp_path / f"q{seed}"
     write_campaign(truth, folder)
     db = tmp_path / f"q{seed}.duckdb"
-    store.import_campaign(db, campaign.read_source(folder))
+    store.import_campaign(db, sources.read_source(folder))
     got = results.get_results(db, Settings(reference_temperature=T_REF))
     want = truth.truth.set_index("catalyst_id").drop(index="blank")
     flags = got.flags[got.flags["scope"] == "catalyst"].groupby("record_id")["code"].agg(set)
@@ -105,7 +105,7 @@ def test_flat_blank_gives_an_enhancement_lower_bound(tmp_path):
     folder = tmp_path / "flat"
     write_campaign(type(truth)(truth.catalysts, truth.trials, traces, truth.truth, truth.trial_truth), folder)
     db = tmp_path / "flat.duckdb"
-    store.import_campaign(db, campaign.read_source(folder))
+    store.import_campaign(db, sources.read_source(folder))
     got = results.get_results(db, Settings(reference_temperature=T_REF))
     cats = got.catalysts
     assert cats["enhancement_ref"].isna().all()
