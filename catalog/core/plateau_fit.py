@@ -18,8 +18,8 @@ the (alpha, rho, theta) layout of :class:`catalog.core.kinetics.ModelFit` with
 
 (the offset column dropped when the offset is not fitted). The profile RSS(kappa) is scanned on
 :data:`FULL_GRID` (down to 1e-6, for blanks that convert a fraction of a per cent) and refined inside the two cells
-around the best grid point: by ``scipy.optimize.minimize_scalar`` in the reference (:func:`fit_full`), by a
-vectorised golden-section search in the batch path (:func:`fit_full_batch`).
+around the best grid point: by ``scipy.optimize.minimize_scalar`` in the reference (:func:`fit_full`), by
+vectorised safeguarded Newton on dRSS/dkappa in the batch path (:func:`fit_full_batch`).
 """
 
 from __future__ import annotations
@@ -31,10 +31,10 @@ from catalog.core.kinetics import CURVATURE_MAX, ModelFit, covariance, curvature
 
 __all__ = ["FULL_GRID", "fit_full", "fit_full_batch"]
 
-#: dimensionless curvature grid of the fixed-plateau fits: 4 points a decade from 1e-6 to 1e3
-FULL_GRID = np.geomspace(1e-6, 1e3, 37)
-_GOLDEN_STEPS = 80
-_INVPHI = (np.sqrt(5.0) - 1.0) / 2.0
+#: dimensionless curvature grid of the fixed-plateau fits: 2 points a decade from 1e-6 to 1e3 (the profile is
+#: smooth and unimodal in log kappa; the refinement brackets the best point by its neighbours)
+FULL_GRID = np.geomspace(1e-6, 1e3, 19)
+_NEWTON_STEPS = 40
 
 
 def _h(model, kappa, U):
@@ -69,7 +69,7 @@ def _pack(model, kappa, U, Y, W, n, m, offset, ok) -> ModelFit:
 
 
 def _profile_rss(model, kappa, U, Y, W, n, m, offset):
-    h = np.where(W, _h(model, kappa, U)[0], 0.0)
+    h = np.where(W, kappa * curvature_basis(model, kappa, U)[0], 0.0)
     z = np.where(W, Y - m[:, None] * h, 0.0)
     if offset:
         z = np.where(W, z - (z.sum(1) / np.maximum(n, 1))[:, None], 0.0)
@@ -90,25 +90,56 @@ def fit_full(model: str, u, y, m: float, offset: bool = True) -> ModelFit:
     return _pack(model, np.array([kappa]), U, Y, W, n, mm, offset, np.array([np.isfinite(kappa)]))
 
 
+def _newton_terms(model, kappa, U, Y, W, n, m, offset):
+    """phi = dRSS/dkappa and phi' at per-row kappa (alpha profiled out; h' = g + kappa g', h'' = 2 g' + kappa g'').
+
+    .. math:: \\phi = -2 m\\, h'^T r,\\qquad \\phi' = 2 m^2\\, \\lVert h' - \\bar{h'}\\rVert^2 - 2 m\\, h''^T r
+    """
+    kap = kappa[:, None]
+    g, d, e = curvature_basis(model, kap, U, 2)
+    h = np.where(W, kap * g, 0.0)
+    dh = np.where(W, g + kap * d, 0.0)
+    ddh = np.where(W, 2 * d + kap * e, 0.0)
+    r = np.where(W, Y - m[:, None] * h, 0.0)
+    if offset:
+        nn = np.maximum(n, 1)[:, None]
+        r = np.where(W, r - r.sum(1, keepdims=True) / nn, 0.0)
+        dhc = np.where(W, dh - dh.sum(1, keepdims=True) / nn, 0.0)
+    else:
+        dhc = dh
+    phi = -2 * m * (dh * r).sum(1)
+    dphi = 2 * m * m * (dhc * dhc).sum(1) - 2 * m * (ddh * r).sum(1)
+    return phi, dphi
+
+
 def fit_full_batch(model: str, U, Y, W, n, m, offset: bool, eligible) -> ModelFit:
-    """Vectorised fixed-plateau fits of padded normalised rows; ``m`` is each row's plateau in units of y."""
+    """Vectorised fixed-plateau fits of padded normalised rows; ``m`` is each row's plateau in units of y.
+
+    The grid point of least RSS brackets the minimum between its neighbours; safeguarded Newton on
+    phi = dRSS/dkappa (bisection whenever a step leaves the bracket or phi' <= 0) refines it.
+    """
     grid = np.stack([_profile_rss(model, k, U, Y, W, n, m, offset) for k in FULL_GRID], 1)
     i = np.argmin(grid, axis=1)
-    lo, hi = FULL_GRID[np.maximum(i - 1, 0)], FULL_GRID[np.minimum(i + 1, FULL_GRID.size - 1)]
-    # golden-section search in log kappa (the grid is geometric)
-    a, b = np.log(lo), np.log(hi)
-    x1, x2 = b - _INVPHI * (b - a), a + _INVPHI * (b - a)
-    f1 = _profile_rss(model, np.exp(x1)[:, None], U, Y, W, n, m, offset)
-    f2 = _profile_rss(model, np.exp(x2)[:, None], U, Y, W, n, m, offset)
-    for _ in range(_GOLDEN_STEPS):
-        left = f1 <= f2
-        b = np.where(left, x2, b)
-        a = np.where(left, a, x1)
-        x2n = np.where(left, x1, a + _INVPHI * (b - a))
-        x1n = np.where(left, b - _INVPHI * (b - a), x2)
-        fn = _profile_rss(model, np.exp(np.where(left, x1n, x2n))[:, None], U, Y, W, n, m, offset)
-        f1, f2 = np.where(left, fn, f2), np.where(left, f1, fn)
-        x1, x2 = x1n, x2n
-    kappa = np.exp(0.5 * (a + b))
+    last = FULL_GRID.size - 1
+    lo, hi = FULL_GRID[np.maximum(i - 1, 0)], FULL_GRID[np.minimum(i + 1, last)]
+    x = FULL_GRID[i].copy()
     ok = eligible & np.isfinite(m) & (m > 0) & np.isfinite(grid.min(axis=1))
-    return _pack(model, np.where(ok, kappa, 1.0), U, Y, W, n, np.where(ok, m, 1.0), offset, ok)
+    mm = np.where(ok, m, 1.0)
+    phi, dphi = _newton_terms(model, x, U, Y, W, n, mm, offset)
+    lo = np.where(phi < 0, x, lo)
+    hi = np.where(phi < 0, hi, x)
+    done = ~ok | (phi == 0) | ((i == 0) & (phi > 0)) | ((i == last) & (phi < 0))
+    for _ in range(_NEWTON_STEPS):
+        act = np.flatnonzero(~done)
+        if act.size == 0:
+            break
+        xa, la, ha = x[act], lo[act], hi[act]
+        step = xa - phi[act] / dphi[act]
+        good = (dphi[act] > 0) & (step > la) & (step < ha)
+        xn = np.where(good, step, np.sqrt(la * ha))  # geometric bisection: the grid is geometric
+        done[act] = np.abs(xn - xa) <= 1e-13 * xa
+        x[act] = xn
+        phi[act], dphi[act] = _newton_terms(model, xn, U[act], Y[act], W[act], n[act], mm[act], offset)
+        lo[act] = np.where(phi[act] < 0, xn, la)
+        hi[act] = np.where(phi[act] < 0, ha, xn)
+    return _pack(model, np.where(ok, x, 1.0), U, Y, W, n, mm, offset, ok)
