@@ -73,23 +73,31 @@ _METHODS = (
      "liquid volume. The first reading of each trial is the zero."),
     ("Rate laws",
      "Zero-, first- and second-order integrated rate laws, each with a fitted starting offset, are fitted to every "
-     "trace by least squares. The law with the lowest Akaike information criterion (AIC) is kept; when none can "
-     "be fitted the initial slope is used. The initial rate r0 is the slope of the chosen curve at t = 0."),
+     "trace by least squares; where the stoichiometric maximum is known, laws with the plateau held at it compete "
+     "too, and a fit whose plateau exceeds it by more than 1.96 of its own standard errors is rejected. The law "
+     "with the lowest small-sample Akaike criterion (AICc) is kept, and the standard error of the initial rate r0 "
+     "includes the Akaike-weighted spread of the candidates' rates. A trace that falls after its maximum (a leak) "
+     "is cut there and flagged; a slow start (induction) is flagged with its largest local rate. When no law can "
+     "be fitted the initial slope is used."),
     ("Turnover frequency",
      "The initial rate per mole of limiting reactant, less the blank rate at the same temperature, is divided by "
      "the moles of active sites of the catalyst charge. Sites come from a measured site density when one is given, "
      "otherwise from metal loading and dispersion; the site basis column says which. TON is product formed per "
      "site by the end of a trial."),
     ("Arrhenius and Eyring",
-     "ln TOF is fitted against 1/T by weighted least squares, the weights from each trial's standard error. When "
-     "the scatter exceeds what those errors explain, the parameter covariance is widened by the squared Birge "
-     "ratio (never narrowed). 95 % intervals use the Student t quantile on n − 2 degrees of freedom. The Eyring "
-     "fit of ln(TOF/T) gives ΔH‡ and ΔS‡ the same way. TOF at the reference temperature is read off the fitted "
-     "line with the confidence interval of the line; it is marked as extrapolated outside the measured range."),
+     "ln TOF is fitted against 1/T by weighted least squares, the weights from each trial's standard error. "
+     "Replicate scatter beyond those errors is an extra variance shared by every trial (Paule-Mandel), and the "
+     "slope is never reported more certain than the unweighted fit. 95 % intervals use the Student t quantile on "
+     "n − 2 degrees of freedom. The Eyring fit of ln(TOF/T) gives ΔH‡ and ΔS‡ the same way. TOF at the reference "
+     "temperature is read off the fitted line with the confidence interval of the line; it is marked as "
+     "extrapolated outside the measured range."),
     ("Blank model",
-     "The initial rates of the uncatalysed (blank) trials are fitted with their own Arrhenius line. The rate "
-     "enhancement over the uncatalysed blank is a catalyst's rate over the blank rate at the same temperature, "
-     "with the uncertainty of both."),
+     "An Arrhenius fit of the blank trials detected above their noise (r0 more than 1.96 standard errors above "
+     "zero), each weighted by its own standard error on the log scale, with the Birge ratio widening the interval "
+     "when the blanks scatter more than those errors explain. A blank not detected above noise gives only an upper "
+     "limit; where it bounds the blank rate, the rate enhancement over the uncatalysed blank is reported as a "
+     "lower bound. The enhancement is a catalyst's rate over the blank rate at the same temperature, with the "
+     "uncertainty of both."),
     ("Ranking",
      "Catalysts are ranked on the chosen figure at the reference temperature. Monte Carlo draws from each "
      "catalyst's interval give a rank interval and the probability of landing in the top k; flagged catalysts "
