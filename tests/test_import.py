@@ -17,7 +17,7 @@ from scipy import constants
 
 from catalog import store
 from catalog.cli import main
-from catalog.errors import ValidationError
+from catalog.errors import DatabaseBusyError, ValidationError
 from catalog.ingest.sources import read_source
 from catalog.units import si_converter
 
@@ -280,7 +280,7 @@ def test_second_writer_gets_busy_message(campaign, db):
     )
     try:
         assert holder.stdout.readline().strip() == "held"
-        with pytest.raises(store.DatabaseBusyError, match="in use by another program"):
+        with pytest.raises(DatabaseBusyError, match="in use by another program"):
             with store.connect(db, wait=0.5):
                 pass
     finally:

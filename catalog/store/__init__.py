@@ -1,0 +1,37 @@
+"""The campaign store: the only package that speaks SQL.
+
+One DuckDB file holds every catalyst, trial and trace point in SI units, with the provenance of each import, the
+history of every correction, and cached analysis results. Values always travel as bound parameters or registered
+DataFrames; no value is ever formatted into SQL text. The schema is built by numbered migrations recorded in
+``schema_migrations``.
+
+Modules, by job: :mod:`~catalog.store.db` (path, connection, locks, transactions, migrations),
+:mod:`~catalog.store.schema` (the tables), :mod:`~catalog.store.importer` and :mod:`~catalog.store.staging`
+(import), :mod:`~catalog.store.queries` (reads), :mod:`~catalog.store.cache` (fits and analysis runs),
+:mod:`~catalog.store.corrections` (correct, exclude, include, history, purge), :mod:`~catalog.store.backup`.
+Callers use the names below, ``from catalog import store; store.import_campaign(...)``.
+"""
+
+from catalog.store.backup import BACKUP_MANIFEST, backup, restore
+from catalog.store.cache import load_fits, load_run, save_run
+from catalog.store.corrections import PURGED, Change, correct, exclude, history, include, purge, purge_import
+from catalog.store.db import DEFAULT_DB, ENV_DB, connect, resolve_path
+from catalog.store.importer import ImportReport, import_campaign
+from catalog.store.queries import (
+    data_stamp,
+    list_catalysts,
+    list_imports,
+    list_trials,
+    load_campaign,
+    load_points,
+    load_records,
+    load_trace,
+    table_counts,
+)
+
+__all__ = [
+    "BACKUP_MANIFEST", "DEFAULT_DB", "ENV_DB", "PURGED", "Change", "ImportReport", "backup", "connect", "correct",
+    "data_stamp", "exclude", "history", "import_campaign", "include", "list_catalysts", "list_imports",
+    "list_trials", "load_campaign", "load_fits", "load_points", "load_records", "load_run", "load_trace", "purge",
+    "purge_import", "resolve_path", "restore", "save_run", "table_counts",
+]

@@ -1,0 +1,91 @@
+"""The analysis cache: kinetic fits per trial, and the result tables of recent analysis runs.
+
+A run is stored under a key of its settings and the data fingerprint; runs of older data are dropped when a new one
+is saved, so the cache holds what the current data produced, not history.
+"""
+
+from __future__ import annotations
+
+import os
+
+import pandas as pd
+
+from catalog.store.db import connect, now, transaction
+
+_CACHE_TABLES = ("trial_results", "catalyst_results", "flags")
+
+
+def _table_columns(con, table: str) -> list[str]:
+    return [r[0] for r in con.execute(
+        "SELECT column_name FROM information_schema.columns WHERE table_name = ? ORDER BY ordinal_position", [table]
+    ).fetchall()]
+
+
+def _insert_frame(con, table: str, frame: pd.DataFrame) -> None:
+    """Insert the frame's columns that the table has, by name (the cache tables ignore extra columns)."""
+    keep = [c for c in _table_columns(con, table) if c in frame.columns]
+    con.register("cache_rows", frame[keep])
+    quoted = ", ".join(f'"{c}"' for c in keep)
+    con.execute(f"INSERT INTO {table} ({quoted}) SELECT {quoted} FROM cache_rows")
+    con.unregister("cache_rows")
+
+
+def load_fits(db: str | os.PathLike | None, fit_version: str) -> pd.DataFrame:
+    """Cached kinetic fits made by this fit version, indexed by trial_id."""
+    with connect(db, read_only=True) as con:
+        fits = con.execute("SELECT * EXCLUDE (fit_version) FROM trial_fits WHERE fit_version = ?", [fit_version]).df()
+    return fits.set_index("trial_id")
+
+
+def save_run(db: str | os.PathLike | None, run_key: str, settings_json: str, stamp: str, fits: pd.DataFrame,
+             fit_version: str, blank: dict, trial_results: pd.DataFrame, catalyst_results: pd.DataFrame,
+             flags: pd.DataFrame) -> None:
+    """Store one analysis run (and refresh the per-trial fit cache) in one transaction.
+
+    Older runs are dropped: the cache holds what the current data and recent settings produced, not history.
+    """
+    fits = fits.reset_index().rename(columns={"index": "trial_id"})
+    fits["fit_version"] = fit_version
+    with connect(db) as con, transaction(con):
+        con.register("fresh_fits", fits[["trial_id"]])
+        con.execute("DELETE FROM trial_fits WHERE trial_id IN (SELECT trial_id FROM fresh_fits)")
+        con.unregister("fresh_fits")
+        _insert_frame(con, "trial_fits", fits)
+        stale = [r[0] for r in con.execute(
+            "SELECT run_key FROM analysis_runs WHERE data_stamp <> ? OR run_key = ?", [stamp, run_key]).fetchall()]
+        for table in (*_CACHE_TABLES, "analysis_runs"):
+            con.execute(f"DELETE FROM {table} WHERE run_key IN (SELECT * FROM unnest(?))", [stale or [""]])
+        con.execute(
+            "INSERT INTO analysis_runs VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+            [run_key, settings_json, stamp, fit_version, now(), *(blank.get(k) for k in (
+                "ea", "ea_low", "ea_high", "ln_a", "t_min", "t_max", "n_points"))],
+        )
+        for table, frame, key in (("trial_results", trial_results, "trial_id"),
+                                  ("catalyst_results", catalyst_results, "catalyst_id")):
+            frame = frame.reset_index().rename(columns={"index": key})
+            frame["run_key"] = run_key
+            _insert_frame(con, table, frame)
+        flags = flags.assign(run_key=run_key)
+        _insert_frame(con, "flags", flags)
+
+
+def load_run(db: str | os.PathLike | None, run_key: str) -> dict | None:
+    """A stored analysis run: its blank summary and the three result tables; None when not cached."""
+    with connect(db, read_only=True) as con:
+        run = con.execute("SELECT * FROM analysis_runs WHERE run_key = ?", [run_key]).df()
+        if run.empty:
+            return None
+        out = {"run": run.iloc[0].to_dict()}
+        # Trial results come back joined to the trial's conditions and kinetic fit: the whole row a page shows.
+        out["trial_results"] = con.execute(
+            """
+            SELECT t.* EXCLUDE (import_id, excluded), f.* EXCLUDE (trial_id, fit_version),
+                   r.* EXCLUDE (run_key, trial_id)
+            FROM trial_results r JOIN trials t USING (trial_id) LEFT JOIN trial_fits f USING (trial_id)
+            WHERE r.run_key = ? ORDER BY t.trial_id
+            """, [run_key]).df()
+        for table in ("catalyst_results", "flags"):
+            out[table] = con.execute(f"SELECT * EXCLUDE (run_key) FROM {table} WHERE run_key = ?", [run_key]).df()
+    return out
+
+

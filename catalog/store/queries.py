@@ -1,0 +1,110 @@
+"""Reading the campaign: catalysts, trials, trace points, imports, counts and the data fingerprint."""
+
+from __future__ import annotations
+
+import os
+
+import pandas as pd
+
+from catalog.store.db import connect
+from catalog.store.schema import CATALYST_FIELDS, TRIAL_FIELDS
+
+
+def list_trials(db: str | os.PathLike | None = None, include_excluded: bool = True) -> pd.DataFrame:
+    """One row per trial with its catalyst, conditions (SI), point count and time span."""
+    with connect(db, read_only=True) as con:
+        return con.execute(
+            """
+            SELECT t.trial_id, t.catalyst_id, t.temperature, t.measurement, t.signal_unit, t.catalyst_mass,
+                   t.operator, t.started_at, t.excluded, t.import_id,
+                   count(p.t) AS n_points, max(p.t) AS duration
+            FROM trials t LEFT JOIN trace_points p USING (trial_id)
+            WHERE ? OR NOT t.excluded
+            GROUP BY ALL
+            ORDER BY t.trial_id
+            """,
+            [include_excluded],
+        ).df()
+
+
+def list_imports(db: str | os.PathLike | None = None) -> pd.DataFrame:
+    """Provenance of every import, newest last."""
+    with connect(db, read_only=True) as con:
+        return con.execute("SELECT * FROM imports ORDER BY import_id").df()
+
+
+def table_counts(db: str | os.PathLike | None = None) -> dict[str, int]:
+    """Row counts of the campaign tables."""
+    with connect(db, read_only=True) as con:
+        return {
+            name: con.execute(f"SELECT count(*) FROM {name}").fetchone()[0]
+            for name in ("imports", "catalysts", "trials", "trace_points")
+        }
+
+
+def data_stamp(db: str | os.PathLike | None = None) -> str:
+    """A fingerprint of the campaign data: changes with every import, correction, exclusion or purge."""
+    with connect(db, read_only=True) as con:
+        row = con.execute(
+            """
+            SELECT (SELECT coalesce(max(import_id), 0) FROM imports), (SELECT coalesce(max(change_id), 0) FROM history),
+                   (SELECT count(*) FROM trials), (SELECT count(*) FROM catalysts)
+            """
+        ).fetchone()
+    return "i{}-h{}-t{}-c{}".format(*row)
+
+
+def load_records(db: str | os.PathLike | None = None) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Catalysts and trials in SI, without excluded records (a trial of an excluded catalyst is left out too)."""
+    with connect(db, read_only=True) as con:
+        catalysts = con.execute(
+            f"SELECT {', '.join(CATALYST_FIELDS)} FROM catalysts WHERE NOT excluded ORDER BY catalyst_id").df()
+        trials = con.execute(
+            f"""SELECT {', '.join(TRIAL_FIELDS)} FROM trials
+                WHERE NOT excluded AND (catalyst_id IS NULL OR catalyst_id NOT IN
+                      (SELECT catalyst_id FROM catalysts WHERE excluded))
+                ORDER BY trial_id""").df()
+    return catalysts, trials
+
+
+def load_points(db: str | os.PathLike | None, trial_ids=None) -> pd.DataFrame:
+    """Trace points ``trial_id, t, value`` (SI) of the given trials, or of every included trial; sorted by trial, t.
+
+    Reading a campaign's points a block of trials at a time keeps the memory of a 10^7-point analysis bounded.
+    """
+    with connect(db, read_only=True) as con:
+        if trial_ids is None:
+            return con.execute(
+                """SELECT p.trial_id, p.t, p.value FROM trace_points p
+                   JOIN trials t USING (trial_id) WHERE NOT t.excluded ORDER BY p.trial_id, p.t""").df()
+        con.register("wanted", pd.DataFrame({"trial_id": pd.Series(list(trial_ids), dtype=object)}))
+        return con.execute(
+            """SELECT p.trial_id, p.t, p.value FROM trace_points p SEMI JOIN wanted w ON p.trial_id = w.trial_id
+               ORDER BY p.trial_id, p.t""").df()
+
+
+def load_campaign(db: str | os.PathLike | None = None) -> tuple[pd.DataFrame, pd.DataFrame, pd.DataFrame]:
+    """Catalysts, trials and trace points in SI, without excluded records (points sorted by trial and time)."""
+    catalysts, trials = load_records(db)
+    return catalysts, trials, load_points(db)
+
+
+def load_trace(db: str | os.PathLike | None, trial_id: str) -> pd.DataFrame:
+    """One trial's points (t, value) in SI."""
+    with connect(db, read_only=True) as con:
+        return con.execute("SELECT t, value FROM trace_points WHERE trial_id = ? ORDER BY t", [trial_id]).df()
+
+def list_catalysts(db: str | os.PathLike | None = None, include_excluded: bool = False) -> pd.DataFrame:
+    """The catalyst registry (SI), with each catalyst's number of trials; no trace points are read."""
+    with connect(db, read_only=True) as con:
+        return con.execute(
+            f"""
+            SELECT {', '.join('c.' + f for f in CATALYST_FIELDS)}, c.excluded, count(t.trial_id) AS n_trials
+            FROM catalysts c LEFT JOIN trials t USING (catalyst_id)
+            WHERE ? OR NOT c.excluded
+            GROUP BY ALL ORDER BY c.catalyst_id
+            """,
+            [include_excluded],
+        ).df()
+
+

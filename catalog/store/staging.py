@@ -1,0 +1,236 @@
+"""Trace points on their way in: staged in an in-memory DuckDB database, checked set-wise, located when faulty.
+
+A clean CSV file costs one typed read and one streaming check; only a file with a fault is read again as text, so
+that each fault is reported with its file, line, column and text as written.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from pathlib import Path
+
+import duckdb
+import pandas as pd
+
+from catalog.errors import Problem
+from catalog.ingest.columns import LONGEST_TRACE_S
+from catalog.ingest.sources import CampaignSource
+from catalog.ingest.validate import trace_layout
+from catalog.store.db import first_line
+
+#: Problems listed per kind of trace fault; the rest are counted, so a million bad rows stay readable.
+LISTED_PER_CHECK = 50
+#: Checks of the staged ``typed`` rows: condition on (line, trial_id, time_num, value_num), column, message.
+_TRACE_FAULTS = (
+    ("trial_id IS NULL OR trial_id = ''", "trial_id", "trial_id is empty"),
+    ("time_num IS NULL OR NOT isfinite(time_num)", "time", "time {time_text!r} is not a finite number"),
+    ("value_num IS NULL OR NOT isfinite(value_num)", "value", "value {value_text!r} is not a finite number"),
+    ("abs(time_num) > (SELECT min(time_limit) FROM factors)", "time",
+     f"time {{time_text}} is outside the plausible range (a trace longer than {LONGEST_TRACE_S:g} s)"),
+    ("abs(value_num) > (SELECT min(value_limit) FROM factors)", "value",
+     "value {value_text} is too large to hold once converted to SI"),
+    ("trial_id <> '' AND trial_id NOT IN (SELECT trial_id FROM factors)", "trial_id",
+     "trial '{trial_id}' is not in the trials table of this campaign"),
+)
+#: Staged rows whose time is not above the previous reading of the same trial, in file order.
+_NOT_INCREASING = """
+    SELECT * FROM (SELECT *, lag(time_num) OVER (PARTITION BY trial_id ORDER BY line) AS previous FROM typed)
+    WHERE time_num <= previous
+"""
+
+
+def stage_traces(
+    stage: duckdb.DuckDBPyConnection, source: CampaignSource, trials: pd.DataFrame
+) -> tuple[list[Problem], list[str]]:
+    """Load the trace table into the staging database, check it set-wise, and define the SI points.
+
+    A CSV file is first read with typed columns, which is all a clean file costs; only when that read fails or a
+    check finds a fault (bad cell, time not increasing, unknown trial, trial without points) is it read again as
+    text, so that each fault is reported with its line and its text as written. Defines the staging view
+    ``points(trial_id, t, value)`` in SI for every trial of this import.
+    """
+    names, time_scale, problems, notes = trace_layout(source.traces)
+    label = source.traces.label
+    if problems:
+        return problems, notes
+    stage.register("factors", pd.DataFrame({
+        "trial_id": trials["trial_id"],
+        "scale": trials["signal_scale"],
+        "shift": trials["signal_shift"],
+        "time_scale": time_scale,
+        # Bounds in the file's units, so the checks run on the numbers as read: no product can overflow.
+        "time_limit": LONGEST_TRACE_S / time_scale,
+        "value_limit": 1e300 / trials["signal_scale"].fillna(1.0).clip(lower=1.0),
+    }).dropna(subset=["trial_id"]))
+    if not (source.traces.csv_path is not None and _stage_typed(stage, source, names)):
+        try:
+            _stage_text(stage, source, names)
+        except duckdb.Error as exc:
+            return [Problem(label, None, None, f"cannot be read as CSV: {first_line(exc)}")], notes
+        located = []
+        for condition, column, message in _TRACE_FAULTS:
+            located += _located(stage, f"SELECT line, trial_id, time_text, value_text FROM typed WHERE {condition}",
+                                label, names[column], message)
+        located += _located(stage, f"SELECT line, trial_id, time_text, value_text FROM ({_NOT_INCREASING})",
+                            label, names["time"], "time {time_text} does not increase within trial '{trial_id}'")
+        problems += _file_lines(located, source.traces.csv_path)
+        empty = stage.execute(
+            "SELECT trial_id FROM factors WHERE trial_id NOT IN (SELECT DISTINCT trial_id FROM typed) ORDER BY trial_id"
+        ).fetchall()
+        trial_rows = {t: i + 2 for i, t in enumerate(trials["trial_id"])}
+        problems += [Problem(source.trials.label, trial_rows.get(t), "trial_id",
+                             f"trial '{t}' has no trace points in {label}") for (t,) in empty]
+    if problems:
+        return problems, notes
+    # A view, not a table: the points are read once more by the final write, so they are never held twice. With
+    # DuckDB's default preserve_insertion_order the join keeps the file's row order.
+    stage.execute(
+        """
+        CREATE VIEW points AS
+        SELECT p.trial_id, p.time_num * f.time_scale AS t, p.value_num * f.scale + f.shift AS value
+        FROM typed p JOIN factors f USING (trial_id)
+        """
+    )
+    return problems, notes
+
+
+def _file_lines(problems: list[Problem], path: Path | None) -> list[Problem]:
+    """Turn data-row numbers into the file's own line numbers where the file has blank lines.
+
+    The CSV reader skips blank lines, so row k of the table can sit further down the file. This runs only when a
+    fault was found, so a clean import never pays for the extra pass over the file.
+    """
+    wanted = sorted({p.row for p in problems if p.row is not None})
+    if path is None or not wanted:
+        return problems
+    physical: dict[int, int] = {}
+    row = 1  # the header is row 1
+    with path.open("r", encoding="utf-8-sig", errors="replace", newline="") as handle:
+        next(handle, None)
+        for number, text in enumerate(handle, start=2):
+            if text.strip():
+                row += 1
+                if row in wanted:
+                    physical[row] = number
+                    if len(physical) == len(wanted):
+                        break
+    return [dataclasses.replace(p, row=physical.get(p.row, p.row)) if p.row is not None else p for p in problems]
+
+
+def _csv_names(source: CampaignSource, names: dict[str, str]) -> list[str]:
+    """Column names for DuckDB's CSV reader: the format's names, ``unused_<i>`` for columns outside it."""
+    return [n if n in names else f"unused_{i}" for i, n in enumerate(_canonical(source.traces.headers, names))]
+
+
+def _stage_typed(stage: duckdb.DuckDBPyConnection, source: CampaignSource, names: dict[str, str]) -> bool:
+    """Stage the trace CSV with numeric time and value columns; False (nothing staged) unless it is all clean.
+
+    The faults are only counted here; locating them is left to the text path, which alone keeps each cell's text
+    for the message.
+    """
+    columns = _csv_names(source, names)
+    types = ["DOUBLE" if n in ("time", "value") else "VARCHAR" for n in columns]
+    try:
+        stage.execute("CREATE TABLE raw AS SELECT * FROM read_csv(?, header = true, names = ?, types = ?)",
+                      [str(source.traces.csv_path), columns, types])
+    except duckdb.Error:
+        return False
+    stage.execute(
+        "CREATE VIEW typed AS SELECT rowid + 2 AS line, trim(trial_id) AS trial_id, time AS time_num, "
+        "value AS value_num FROM raw"
+    )
+    cells = " OR ".join(f"({c})" for c, _, _ in _TRACE_FAULTS[:5])
+    # One streaming scan counts the bad cells and the times that do not increase. Lag over the rows as they come is
+    # far cheaper than a window per trial, and exact when they came in file order (checked: consecutive lines) and
+    # each trial's rows are contiguous (runs = trials); otherwise the window per trial decides.
+    shuffled, runs, n_trials, faults = stage.execute(
+        f"""
+        SELECT count(*) FILTER (line <> previous_line + 1), count(*) FILTER (trial_id IS DISTINCT FROM previous_trial),
+               count(DISTINCT trial_id),
+               count(*) FILTER (({cells}) OR (trial_id = previous_trial AND time_num <= previous_time))
+        FROM (SELECT *, lag(line) OVER () AS previous_line, lag(trial_id) OVER () AS previous_trial,
+                     lag(time_num) OVER () AS previous_time FROM typed)
+        """
+    ).fetchone()
+    if not faults and (shuffled or runs != n_trials):
+        faults = stage.execute(f"SELECT count(*) FROM ({_NOT_INCREASING})").fetchone()[0]
+    if not faults:
+        # Ids are matched once each, not once per row: every id in the file is a trial and every trial has points.
+        matched, expected = stage.execute(
+            "SELECT count(*), (SELECT count(*) FROM factors) FROM factors "
+            "WHERE trial_id IN (SELECT DISTINCT trial_id FROM typed)"
+        ).fetchone()
+        faults = matched != n_trials or matched != expected
+    if faults:
+        stage.execute("DROP VIEW typed")
+        stage.execute("DROP TABLE raw")
+        return False
+    return True
+
+
+def _stage_text(stage: duckdb.DuckDBPyConnection, source: CampaignSource, names: dict[str, str]) -> None:
+    """Stage the trace table as text, with the parsed numbers beside it, as the table ``typed``."""
+    if source.traces.csv_path is not None:
+        # Every column is read as text so a bad cell becomes a located problem, not a parse failure.
+        stage.execute(
+            "CREATE TABLE raw AS SELECT * FROM read_csv(?, header = true, all_varchar = true, names = ?)",
+            [str(source.traces.csv_path), _csv_names(source, names)],
+        )
+    else:
+        order = [name for header in source.traces.headers for name, h in names.items() if h == header]
+        frame = source.traces.frame.rename(columns={h: n for n, h in names.items()})
+        stage.register("raw_frame", frame[order])
+        stage.execute("CREATE TABLE raw AS SELECT * FROM raw_frame")
+    stage.execute(
+        """
+        CREATE TABLE typed AS
+        SELECT rowid + 2 AS line, trim(trial_id) AS trial_id,
+               coalesce(time, '') AS time_text, coalesce(value, '') AS value_text,
+               TRY_CAST(time AS DOUBLE) AS time_num, TRY_CAST(value AS DOUBLE) AS value_num
+        FROM raw
+        """
+    )
+    stage.execute("DROP TABLE raw")
+
+
+def _canonical(headers: tuple[str, ...], names: dict[str, str]) -> list[str]:
+    by_header = {h: n for n, h in names.items()}
+    return [by_header.get(h, "") for h in headers]
+
+
+def _located(stage, sql: str, label: str, header: str, message: str) -> list[Problem]:
+    total = stage.execute(f"SELECT count(*) FROM ({sql})").fetchone()[0]
+    if total == 0:
+        return []
+    rows = stage.execute(f"{sql} ORDER BY line LIMIT {LISTED_PER_CHECK}").fetchall()
+    out = [
+        Problem(label, int(line), header,
+                message.format(trial_id=trial, time_text=time_text, value_text=value_text))
+        for line, trial, time_text, value_text in rows
+    ]
+    if total > LISTED_PER_CHECK:
+        out.append(Problem(label, None, header, f"... and {total - LISTED_PER_CHECK} more rows with the same problem"))
+    return out
+
+
+def same_traces(con, stage, overlap: list[str]) -> set[str]:
+    """Trial ids whose staged points equal the stored ones (same count, same times and values)."""
+    stored = con.execute(
+        "SELECT trial_id, t, value FROM trace_points WHERE trial_id IN (SELECT * FROM unnest(?))", [overlap]
+    ).df()
+    stage.register("stored_points", stored)
+    rows = stage.execute(
+        """
+        WITH a AS (SELECT trial_id, t, value, row_number() OVER (PARTITION BY trial_id ORDER BY t) AS k
+                   FROM points WHERE trial_id IN (SELECT trial_id FROM stored_points)),
+             b AS (SELECT trial_id, t, value, row_number() OVER (PARTITION BY trial_id ORDER BY t) AS k
+                   FROM stored_points)
+        SELECT trial_id FROM a FULL JOIN b USING (trial_id, k)
+        GROUP BY trial_id
+        HAVING bool_and(a.t IS NOT NULL AND b.t IS NOT NULL
+                        AND abs(a.t - b.t) <= 1e-12 * abs(b.t) AND abs(a.value - b.value) <= 1e-12 * abs(b.value))
+        """
+    ).fetchall()
+    return {r[0] for r in rows}
+
+
