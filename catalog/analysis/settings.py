@@ -12,6 +12,8 @@ import hashlib
 import json
 from dataclasses import asdict, dataclass
 
+from catalog.store.schema import TRIAL_FIT
+
 #: Temperatures within this many kelvin are one set point (replicates), e.g. 35.0 and 35.1 °C.
 SET_POINT_TOLERANCE = 0.5
 
@@ -21,11 +23,8 @@ FIT_SCHEMA = 2
 ANALYSIS_SCHEMA = 2
 FIT_VERSION = f"fit-{FIT_SCHEMA}"
 
-TRIAL_FIT_COLUMNS = (
-    "model", "r0", "r0_se", "k", "k_se", "k_unit", "half_life", "offset", "plateau", "plateau_se", "n_max",
-    "plateau_ratio", "final_amount", "final_conversion", "r2", "rmse", "n_points", "late_residual_z", "runs_z",
-    "plateau_fixed", "model_weight", "leak_cut", "max_rate", "induction_z", "aic_zero", "aic_first", "aic_second",
-)
+#: The per-trial fit columns, in the order the store declares them (the one declaration: catalog.store.schema).
+TRIAL_FIT_COLUMNS = tuple(name for name, _ in TRIAL_FIT)
 
 
 @dataclass(frozen=True)

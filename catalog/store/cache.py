@@ -11,21 +11,29 @@ import os
 import pandas as pd
 
 from catalog.store.db import connect, now, transaction
+from catalog.store.schema import TRIAL_FIELDS, TRIAL_FIT, SchemaMismatch, cache_columns
 
-_CACHE_TABLES = ("trial_results", "catalyst_results", "flags")
-
-
-def _table_columns(con, table: str) -> list[str]:
-    return [r[0] for r in con.execute(
-        "SELECT column_name FROM information_schema.columns WHERE table_name = ? ORDER BY ordinal_position", [table]
-    ).fetchall()]
+#: Tables holding one run's rows, keyed by run_key.
+_RUN_TABLES = ("trial_results", "catalyst_results", "flags", "analysis_runs")
+#: Columns of an analysed trial that are stored elsewhere: its conditions in ``trials``, its fit in ``trial_fits``.
+_TRIAL_STORED_ELSEWHERE = frozenset(TRIAL_FIELDS) | {name for name, _ in TRIAL_FIT}
 
 
 def _insert_frame(con, table: str, frame: pd.DataFrame) -> None:
-    """Insert the frame's columns that the table has, by name (the cache tables ignore extra columns)."""
-    keep = [c for c in _table_columns(con, table) if c in frame.columns]
-    con.register("cache_rows", frame[keep])
-    quoted = ", ".join(f'"{c}"' for c in keep)
+    """Insert a frame into a cache table by column name; declared columns the frame lacks are stored as NULL.
+
+    Raises
+    ------
+    SchemaMismatch
+        The frame carries a column the table does not declare (it would be lost).
+    """
+    declared = cache_columns(table)
+    extra = [c for c in frame.columns if c not in declared]
+    if extra:
+        raise SchemaMismatch(f"{table} declares no column for {', '.join(map(repr, extra))}: add it to "
+                             "catalog.store.schema with a migration that rebuilds the cache")
+    con.register("cache_rows", frame)
+    quoted = ", ".join(f'"{c}"' for c in frame.columns)
     con.execute(f"INSERT INTO {table} ({quoted}) SELECT {quoted} FROM cache_rows")
     con.unregister("cache_rows")
 
@@ -53,13 +61,13 @@ def save_run(db: str | os.PathLike | None, run_key: str, settings_json: str, sta
         _insert_frame(con, "trial_fits", fits)
         stale = [r[0] for r in con.execute(
             "SELECT run_key FROM analysis_runs WHERE data_stamp <> ? OR run_key = ?", [stamp, run_key]).fetchall()]
-        for table in (*_CACHE_TABLES, "analysis_runs"):
+        for table in _RUN_TABLES:
             con.execute(f"DELETE FROM {table} WHERE run_key IN (SELECT * FROM unnest(?))", [stale or [""]])
-        con.execute(
-            "INSERT INTO analysis_runs VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
-            [run_key, settings_json, stamp, fit_version, now(), *(blank.get(k) for k in (
-                "ea", "ea_low", "ea_high", "ln_a", "t_min", "t_max", "n_points"))],
-        )
+        run = {"run_key": run_key, "settings": settings_json, "data_stamp": stamp, "code_version": fit_version,
+               "created_at": now(), "blank_n": blank.get("n_points")} | {
+            f"blank_{k}": blank.get(k) for k in ("ea", "ea_low", "ea_high", "ln_a", "t_min", "t_max")}
+        _insert_frame(con, "analysis_runs", pd.DataFrame([run]))
+        trial_results = trial_results.drop(columns=[c for c in trial_results.columns if c in _TRIAL_STORED_ELSEWHERE])
         for table, frame, key in (("trial_results", trial_results, "trial_id"),
                                   ("catalyst_results", catalyst_results, "catalyst_id")):
             frame = frame.reset_index().rename(columns={"index": key})
