@@ -53,10 +53,12 @@ class Results:
     run_key: str
     data_stamp: str
     computed: bool
+    #: False when the database is read-only: the figures were computed for this call and not stored.
+    cached: bool = True
 
 
-#: Trials fitted per block: bounds the memory of a cold analysis of a campaign of any size (~2×10^6 points).
-FIT_BLOCK = 10_000
+#: Trace points fitted per block: bounds the memory of a cold analysis by points, whatever the number of trials.
+FIT_BLOCK_POINTS = 2_000_000
 
 
 def run_key(settings: Settings, stamp: str) -> str:
@@ -71,6 +73,7 @@ def get_results(db: str | os.PathLike | None, settings: Settings, progress=None)
     key = run_key(settings, stamp)
     cached = store.load_run(db, key)
     computed = cached is None
+    stored = True
     if computed:
         say("loading trials")
         catalysts, trials = store.load_records(db)
@@ -90,27 +93,32 @@ def get_results(db: str | os.PathLike | None, settings: Settings, progress=None)
             "t_min": blank.t_min, "t_max": blank.t_max, "n_points": blank.n_points}
         say("storing results")
         fit_columns = list(TRIAL_FIT_COLUMNS)
-        store.save_run(db, key, json.dumps(asdict(settings), sort_keys=True), stamp,
-                       result.trials[fit_columns], FIT_VERSION, summary, trial_table, catalyst_table, flags)
-        cached = store.load_run(db, key)
+        stored = store.save_run(db, key, json.dumps(asdict(settings), sort_keys=True), stamp,
+                                result.trials[fit_columns], FIT_VERSION, summary, trial_table, catalyst_table, flags)
+        if stored:
+            cached = store.load_run(db, key)
+        else:
+            say("the database is read-only: figures computed for this command, not cached")
+            cached = store.run_frames(summary, trial_table, catalyst_table, flags)
     run = cached["run"]
     blank = {} if pd.isna(run.get("blank_ea")) else {
         k: run[f"blank_{k}"] for k in ("ea", "ea_low", "ea_high", "ln_a", "t_min", "t_max")} | {"n": run["blank_n"]}
     trials = cached["trial_results"].set_index("trial_id")
     catalysts = cached["catalyst_results"].set_index("catalyst_id").sort_index()
-    return Results(trials, catalysts, cached["flags"], blank, settings, key, stamp, computed)
+    return Results(trials, catalysts, cached["flags"], blank, settings, key, stamp, computed, stored)
 
 
 def _fit_missing(db, trials: pd.DataFrame, cached: pd.DataFrame, say) -> pd.DataFrame:
     """Kinetic fits for every trial: cached ones reused, the rest fitted a block of trials at a time."""
     todo = trials.index.difference(cached.index)
     say(f"fitting {len(todo)} trace(s), reusing {len(trials) - len(todo)} cached fit(s)")
-    fresh = []
-    for start in range(0, len(todo), FIT_BLOCK):
-        block = todo[start:start + FIT_BLOCK]
+    fresh, done = [], 0
+    blocks = store.point_blocks(db, todo, FIT_BLOCK_POINTS)
+    for block in blocks:
         fresh.append(fit_all(trials.loc[block], store.load_points(db, block)))
-        if len(todo) > FIT_BLOCK:
-            say(f"  fitted {min(start + FIT_BLOCK, len(todo))} of {len(todo)}")
+        done += len(block)
+        if len(blocks) > 1:
+            say(f"  fitted {done} of {len(todo)}")
     return pd.concat([cached.loc[cached.index.intersection(trials.index)], *fresh])
 
 

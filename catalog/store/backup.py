@@ -11,7 +11,19 @@ import duckdb
 
 from catalog import __version__
 from catalog.errors import CatalogError, DatabaseBusyError
-from catalog.store.db import OFFLINE, connect, first_line, migrate, now, resolve_path, transaction
+from catalog.store.db import (
+    OFFLINE,
+    RESTORING,
+    connect,
+    first_line,
+    literal_path,
+    migrate,
+    now,
+    remove_stale_restores,
+    resolve_path,
+    transaction,
+)
+from catalog.store.integrity import restored_problems
 from catalog.store.schema import MIGRATIONS
 
 BACKUP_MANIFEST = "catalog-backup.json"
@@ -50,6 +62,7 @@ def backup(db: str | os.PathLike | None, directory: str | os.PathLike) -> dict:
         out.mkdir(parents=True, exist_ok=True)
         counts = {}
         for name in _all_tables(con):
+            # Writing takes the path literally; only DuckDB's readers expand glob characters.
             con.execute(f"COPY (SELECT * FROM {name}) TO ? (FORMAT parquet)", [str(out / f"{name}.parquet")])
             counts[name] = int(con.execute(f"SELECT count(*) FROM {name}").fetchone()[0])
         migrations = [r[0] for r in con.execute("SELECT version FROM schema_migrations ORDER BY version").fetchall()]
@@ -121,7 +134,9 @@ def restore(directory: str | os.PathLike, db: str | os.PathLike | None, *, force
     target = resolve_path(db)
     if target.exists() and not force and _holds_data(target):
         raise CatalogError(f"{target} already holds data; restore into a new file, or use force to replace it")
-    partial = target.with_name(target.name + ".restoring")
+    # The side file carries this process's id: if the restore is killed, the next open of the target removes it.
+    remove_stale_restores(target)
+    partial = target.with_name(f"{target.name}{RESTORING}{os.getpid()}")
     _remove_database(partial)
     con = duckdb.connect(str(partial), config=OFFLINE)
     try:
@@ -137,11 +152,16 @@ def restore(directory: str | os.PathLike, db: str | os.PathLike | None, *, force
                 file = folder / f"{name}.parquet"
                 if not file.is_file():
                     raise CatalogError(f"{file}: missing; the backup is incomplete")
-                con.execute(f"INSERT INTO {name} BY NAME SELECT * FROM read_parquet(?)", [str(file)])
+                with literal_path(file) as literal:
+                    con.execute(f"INSERT INTO {name} BY NAME SELECT * FROM read_parquet(?)", [literal])
                 count = con.execute(f"SELECT count(*) FROM {name}").fetchone()[0]
                 if count != manifest["tables"][name]:
                     raise CatalogError(f"{file}: {count} rows, but the manifest says {manifest['tables'][name]}; "
                                        "the backup is damaged")
+            problems = restored_problems(con)
+            if problems:
+                raise CatalogError(f"{folder}: not restored, the backup holds data an import would refuse (altered "
+                                   "or damaged):\n  " + "\n  ".join(problems))
         con.execute("CHECKPOINT")
     except duckdb.Error as exc:
         con.close()

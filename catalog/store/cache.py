@@ -10,8 +10,8 @@ import os
 
 import pandas as pd
 
-from catalog.store.db import connect, now, transaction
-from catalog.store.schema import TRIAL_FIELDS, TRIAL_FIT, SchemaMismatch, cache_columns
+from catalog.store.db import ReadOnlyDatabase, connect, now, transaction
+from catalog.store.schema import TRIAL_FIELDS, TRIAL_FIT, TRIAL_RESULT, SchemaMismatch, cache_columns
 
 #: Tables holding one run's rows, keyed by run_key.
 _RUN_TABLES = ("trial_results", "catalyst_results", "flags", "analysis_runs")
@@ -47,11 +47,24 @@ def load_fits(db: str | os.PathLike | None, fit_version: str) -> pd.DataFrame:
 
 def save_run(db: str | os.PathLike | None, run_key: str, settings_json: str, stamp: str, fits: pd.DataFrame,
              fit_version: str, blank: dict, trial_results: pd.DataFrame, catalyst_results: pd.DataFrame,
-             flags: pd.DataFrame) -> None:
+             flags: pd.DataFrame) -> bool:
     """Store one analysis run (and refresh the per-trial fit cache) in one transaction.
 
     Older runs are dropped: the cache holds what the current data and recent settings produced, not history.
+
+    Returns
+    -------
+    bool
+        False when the database is read-only: nothing was stored, and :func:`run_frames` gives the run instead.
     """
+    try:
+        _save_run(db, run_key, settings_json, stamp, fits, fit_version, blank, trial_results, catalyst_results, flags)
+    except ReadOnlyDatabase:
+        return False
+    return True
+
+
+def _save_run(db, run_key, settings_json, stamp, fits, fit_version, blank, trial_results, catalyst_results, flags):
     fits = fits.reset_index().rename(columns={"index": "trial_id"})
     fits["fit_version"] = fit_version
     with connect(db) as con, transaction(con):
@@ -75,6 +88,22 @@ def save_run(db: str | os.PathLike | None, run_key: str, settings_json: str, sta
             _insert_frame(con, table, frame)
         flags = flags.assign(run_key=run_key)
         _insert_frame(con, "flags", flags)
+
+
+def run_frames(blank: dict, trial_results: pd.DataFrame, catalyst_results: pd.DataFrame,
+               flags: pd.DataFrame) -> dict:
+    """An analysis run in the layout :func:`load_run` returns, built in memory (for a read-only database).
+
+    ``trial_results`` is the whole analysed trial (conditions, fit and figures), as given to :func:`save_run`.
+    """
+    run = {"blank_n": blank.get("n_points")} | {
+        f"blank_{k}": blank.get(k) for k in ("ea", "ea_low", "ea_high", "ln_a", "t_min", "t_max")}
+    trials = trial_results.reset_index().rename(columns={"index": "trial_id"})
+    order = [*TRIAL_FIELDS, *(name for name, _ in TRIAL_FIT), *(name for name, _ in TRIAL_RESULT)]
+    catalysts = catalyst_results.reset_index().rename(columns={"index": "catalyst_id"})
+    return {"run": run, "trial_results": trials[[c for c in order if c in trials.columns]],
+            "catalyst_results": catalysts[[c for c in cache_columns("catalyst_results")[1:] if c in catalysts.columns]],
+            "flags": flags.reset_index(drop=True)}
 
 
 def load_run(db: str | os.PathLike | None, run_key: str) -> dict | None:

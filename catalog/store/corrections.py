@@ -18,7 +18,7 @@ from catalog.ingest.columns import CATALYST_COLUMNS, TRIAL_COLUMNS
 from catalog.ingest.sources import RawTable
 from catalog.ingest.validate import check_catalysts, check_trials
 from catalog.store.db import connect, now, resolve_path, transaction, user
-from catalog.store.values import as_text, bound, same_value
+from catalog.store.values import as_text, bound, is_missing, same_value
 from catalog.units import from_si
 
 #: Tables that take corrections, with their key and column contract. Table and column names put into correction
@@ -162,6 +162,8 @@ def correct(db: str | os.PathLike | None, table: str, record_id: str, column: st
     label = f"correction of {_noun(table)} '{record_id}'"
     with connect(db) as con, transaction(con):
         stored = _stored_row(con, table, key, record_id)
+        if table == "trials" and column == "catalyst_id":
+            _refuse_blank_switch(record_id, is_missing(stored[column]), not value_text.strip())
         known = {r[0] for r in con.execute("SELECT catalyst_id FROM catalysts").fetchall()}
         # Stored values go back through a unit conversion and may trip a bound by one ulp; only what the correction
         # newly breaks is reported.
@@ -178,6 +180,16 @@ def correct(db: str | os.PathLike | None, table: str, record_id: str, column: st
         if table == "trials":
             con.execute("DELETE FROM trial_fits WHERE trial_id = ?", [record_id])
         return _record_change(con, table, record_id, column, as_text(stored[column]), as_text(value), who, reason)
+
+
+def _refuse_blank_switch(record_id: str, was_blank: bool, becomes_blank: bool) -> None:
+    """Clearing catalyst_id would silently turn a catalysed trial into an uncatalysed blank, the baseline of every
+    enhancement: a different experiment, which takes a new import, never a correction."""
+    if becomes_blank and not was_blank:
+        raise CatalogError(f"an empty catalyst_id would turn trial '{record_id}' into an uncatalysed blank, a "
+                           "different experiment; import the blank under a new trial id (catalyst_id left empty) and "
+                           "exclude or purge this trial. To move the trial to another catalyst, give that catalyst's "
+                           "id")
 
 
 def _set_excluded(db, table: str, record_id: str, excluded: bool, who: str | None, reason: str | None) -> Change:

@@ -11,6 +11,7 @@ import contextlib
 import getpass
 import os
 import re
+import tempfile
 import time
 from collections.abc import Iterator
 from datetime import datetime, timezone
@@ -29,16 +30,44 @@ LOCK_WAIT_S = 10.0
 OFFLINE = {"autoinstall_known_extensions": False, "autoload_known_extensions": False}
 
 
+#: Names DuckDB opens as something other than a local file (in-memory, remote, extension-backed databases).
+#: (A one-letter prefix is a Windows drive, and stays a file.)
+_NOT_A_FILE = re.compile(r"^(:|[a-z][a-z0-9+.-]+:)", re.IGNORECASE)
+#: Words of an operating-system refusal to write, as DuckDB passes it on.
+_READ_ONLY_WORDS = ("permission denied", "operation not permitted", "read-only file system")
+#: Characters DuckDB's file readers take as a glob pattern.
+_GLOB = re.compile(r"[*?\[\]{}]")
+#: Suffix of the side file a restore builds (with its process id), removed when that process is gone.
+RESTORING = ".restoring-"
+
+
+class ReadOnlyDatabase(CatalogError):
+    """The database file (or its folder) cannot be written: it can be read, not changed or cached into."""
+
+
 def resolve_path(db: str | os.PathLike | None) -> Path:
-    """Database location: the explicit path, else ``$CATALOG_DB``, else ``catalog.duckdb`` here."""
-    if db:
-        return Path(db)
-    return Path(os.environ.get(ENV_DB) or DEFAULT_DB)
+    """Database location: the explicit path, else ``$CATALOG_DB``, else ``catalog.duckdb`` here.
+
+    Raises
+    ------
+    CatalogError
+        A name DuckDB would open as an in-memory or remote database (``:memory:``, ``md:...``, ``s3://...``): the
+        store is always a file, so such a name would silently lose an import.
+    """
+    text = os.fspath(db) if db else (os.environ.get(ENV_DB) or DEFAULT_DB)
+    if _NOT_A_FILE.match(str(text)):
+        raise CatalogError(f"'{text}' is not a database file; give a file path, e.g. --db campaign.duckdb")
+    return Path(text)
 
 
 def is_lock_error(exc: Exception) -> bool:
     text = str(exc).lower()
     return "lock" in text and ("conflicting" in text or "could not set lock" in text or "in use" in text)
+
+
+def is_read_only_error(exc: Exception) -> bool:
+    text = str(exc).lower()
+    return any(words in text for words in _READ_ONLY_WORDS)
 
 
 def holder(exc: Exception) -> str:
@@ -53,22 +82,43 @@ def connect(db: str | os.PathLike | None = None, *, read_only: bool = False, wai
 
     Only ``create=True`` (an import's final write) makes a new file, so a mistyped path or a failed command never
     leaves an empty database behind. A lock held by another process is retried for ``wait`` seconds, then reported
-    as busy. A read-only open of a file made by an older version first brings its schema up to date.
+    as busy. A read-only open of a file made by an older version first brings its schema up to date. A file made
+    by a newer version, or a DuckDB file that is not a catalog, is refused before anything is written to it; a
+    damaged or truncated file gives a plain :class:`~catalog.errors.CatalogError` whenever DuckDB trips on it.
+
+    Raises
+    ------
+    ReadOnlyDatabase
+        A write (or the schema upgrade a read needs) on a file or folder that cannot be written.
     """
     path = resolve_path(db)
     if not create and not path.exists():
         raise CatalogError(f"{path}: no database here yet; import a campaign first (catalog import FOLDER --db {path})")
+    remove_stale_restores(path)
     con = _open(path, read_only, wait)
-    if read_only and _pending_migrations(con):
-        # A file from an older version: bring its schema up to date once, then read as asked.
-        con.close()
-        with connect(path, wait=wait):
-            pass
-        con = _open(path, read_only, wait)
     try:
-        if not read_only:
+        if read_only and _schema_version(con, path) != MIGRATIONS[-1][0]:
+            # A file from an older version: bring its schema up to date once, then read as asked.
+            con.close()
+            try:
+                with connect(path, wait=wait):
+                    pass
+            except ReadOnlyDatabase:
+                raise ReadOnlyDatabase(f"{path} was made by an older version and is read-only, so its schema cannot "
+                                       "be brought up to date; copy it to a folder you can write and use the copy"
+                                       ) from None
+            con = _open(path, read_only, wait)
+        elif not read_only:
+            _schema_version(con, path)
             migrate(con)
         yield con
+    except duckdb.Error as exc:
+        if is_read_only_error(exc):
+            raise ReadOnlyDatabase(f"{path} cannot be written ({first_line(exc)}); nothing was changed") from exc
+        if isinstance(exc, duckdb.IOException):
+            raise CatalogError(f"{path}: cannot be read or written ({first_line(exc)}); if the file is damaged, "
+                               "restore it from a backup (catalog restore)") from exc
+        raise
     finally:
         con.close()
 
@@ -80,8 +130,11 @@ def _open(path: Path, read_only: bool, wait: float) -> duckdb.DuckDBPyConnection
         try:
             return duckdb.connect(str(path), read_only=read_only, config=OFFLINE)
         except duckdb.IOException as exc:
+            if not read_only and is_read_only_error(exc):
+                raise ReadOnlyDatabase(f"{path} is read-only here ({first_line(exc)}); it can be ranked and "
+                                       "reported, not changed") from exc
             if not is_lock_error(exc):
-                raise CatalogError(f"{path}: cannot open the database: {exc}") from exc
+                raise CatalogError(f"{path}: cannot open the database: {first_line(exc)}") from exc
             if time.monotonic() >= deadline:
                 raise DatabaseBusyError(
                     f"{path} is in use by another program{holder(exc)}; try again when it has finished"
@@ -89,15 +142,50 @@ def _open(path: Path, read_only: bool, wait: float) -> duckdb.DuckDBPyConnection
             time.sleep(delay)
             delay = min(delay * 2, 0.5)
         except duckdb.Error as exc:
-            raise CatalogError(f"{path}: not a catalog database or damaged: {exc}") from exc
+            raise CatalogError(f"{path}: not a catalog database or damaged: {first_line(exc)}") from exc
 
 
-def _pending_migrations(con: duckdb.DuckDBPyConnection) -> bool:
+def _schema_version(con: duckdb.DuckDBPyConnection, path: Path) -> int | None:
+    """The file's schema version (None for a new, empty file); refuses newer versions and foreign DuckDB files."""
     # fetchall, not fetchone: DuckDB 2.0 keeps a half-read result open and refuses the caller's next statement.
-    done = con.execute(
-        "SELECT count(*) FROM information_schema.tables WHERE table_name = 'schema_migrations'").fetchall()[0][0]
-    latest = con.execute("SELECT max(version) FROM schema_migrations").fetchall()[0][0] if done else None
-    return latest is None or latest < MIGRATIONS[-1][0]
+    tables = {r[0] for r in con.execute(
+        "SELECT table_name FROM information_schema.tables WHERE table_schema = 'main'").fetchall()}
+    if "schema_migrations" not in tables:
+        if tables:
+            raise CatalogError(f"{path}: a DuckDB file, but not a catalog database (it has no schema_migrations "
+                               "table); give the path of a catalog database or a new file")
+        return None
+    latest = con.execute("SELECT max(version) FROM schema_migrations").fetchall()[0][0]
+    known = MIGRATIONS[-1][0]
+    if latest is not None and latest > known:
+        raise CatalogError(f"{path}: made by a newer catalog (schema version {latest}; this version knows up to "
+                           f"{known}); upgrade catalog to use it. Nothing was changed")
+    return latest
+
+
+def remove_stale_restores(path: Path) -> None:
+    """Delete side files of restores into ``path`` whose process is gone (killed), so none lingers on disk."""
+    folder, prefix = path.parent, path.name + RESTORING
+    try:
+        names = [n for n in os.listdir(folder or ".") if n.startswith(prefix)]
+    except OSError:
+        return
+    for name in names:
+        pid = name[len(prefix):].removesuffix(".wal")
+        if pid.isdigit() and not _alive(int(pid)):
+            (folder / name).unlink(missing_ok=True)
+
+
+def _alive(pid: int) -> bool:
+    if pid == os.getpid():
+        return True
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True  # another user's process
+    return True
 
 
 def migrate(con: duckdb.DuckDBPyConnection, upto: int | None = None) -> list[int]:
@@ -148,3 +236,20 @@ def user() -> str:
 def first_line(exc: Exception) -> str:
     """The first line of a DuckDB message, which names the fault without the internals that follow."""
     return str(exc).strip().splitlines()[0]
+
+
+@contextlib.contextmanager
+def literal_path(path: Path) -> Iterator[str]:
+    """A name for ``path`` that DuckDB's file readers take literally.
+
+    DuckDB reads ``*``, ``?`` and ``[...]`` in a path as a glob pattern, so a folder named ``*`` would read every
+    sibling folder's file. Such a path is reached through a symbolic link in a fresh temporary folder instead.
+    """
+    if not _GLOB.search(str(path)):
+        yield str(path)
+        return
+    with tempfile.TemporaryDirectory(prefix="catalog-") as folder:
+        link = Path(folder) / ("file" + path.suffix)
+        link.symlink_to(path.resolve())
+        yield str(link)
+

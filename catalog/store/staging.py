@@ -16,7 +16,7 @@ from catalog.errors import Problem
 from catalog.ingest.columns import LONGEST_TRACE_S
 from catalog.ingest.sources import CampaignSource
 from catalog.ingest.validate import trace_layout
-from catalog.store.db import first_line
+from catalog.store.db import first_line, literal_path
 
 #: Problems listed per kind of trace fault; the rest are counted, so a million bad rows stay readable.
 LISTED_PER_CHECK = 50
@@ -131,8 +131,9 @@ def _stage_typed(stage: duckdb.DuckDBPyConnection, source: CampaignSource, names
     columns = _csv_names(source, names)
     types = ["DOUBLE" if n in ("time", "value") else "VARCHAR" for n in columns]
     try:
-        stage.execute("CREATE TABLE raw AS SELECT * FROM read_csv(?, header = true, names = ?, types = ?)",
-                      [str(source.traces.csv_path), columns, types])
+        with literal_path(source.traces.csv_path) as path:
+            stage.execute("CREATE TABLE raw AS SELECT * FROM read_csv(?, header = true, names = ?, types = ?)",
+                          [path, columns, types])
     except duckdb.Error:
         return False
     stage.execute(
@@ -172,10 +173,11 @@ def _stage_text(stage: duckdb.DuckDBPyConnection, source: CampaignSource, names:
     """Stage the trace table as text, with the parsed numbers beside it, as the table ``typed``."""
     if source.traces.csv_path is not None:
         # Every column is read as text so a bad cell becomes a located problem, not a parse failure.
-        stage.execute(
-            "CREATE TABLE raw AS SELECT * FROM read_csv(?, header = true, all_varchar = true, names = ?)",
-            [str(source.traces.csv_path), _csv_names(source, names)],
-        )
+        with literal_path(source.traces.csv_path) as path:
+            stage.execute(
+                "CREATE TABLE raw AS SELECT * FROM read_csv(?, header = true, all_varchar = true, names = ?)",
+                [path, _csv_names(source, names)],
+            )
     else:
         order = [name for header in source.traces.headers for name, h in names.items() if h == header]
         frame = source.traces.frame.rename(columns={h: n for n, h in names.items()})
