@@ -282,3 +282,28 @@ def test_fit_blocks_are_bounded_by_points_not_trials(tmp_path):
     assert sizes == [800, 800, 800, 800, 1000]
     # A trial longer than the bound is a block of its own; unknown ids cost nothing.
     assert store.point_blocks(db, ["L0", "S0", "nope", "L1"], 100) == [["L0"], ["S0", "nope"], ["L1"]]
+
+
+# --------------------------------------------------------------------------------------------------- issue 10 item 3
+
+
+def test_corrections_check_typed_values_not_a_text_round_trip(db):
+    # A mass that does not survive kg -> mg text -> kg (checked: 2.3855787612557447e-05 comes back ...45e-05).
+    mass = 2.3855787612557447e-05
+    con = duckdb.connect(str(db))
+    con.execute("UPDATE trials SET catalyst_mass = ? WHERE trial_id = 'R1'", [mass])
+    con.close()
+    store.correct(db, "trials", "R1", "operator", "dee")
+    store.correct(db, "trials", "R1", "temperature", "35 degC")
+    with store.connect(db, read_only=True) as con:
+        temperature, stored_mass = con.execute(
+            "SELECT temperature, catalyst_mass FROM trials WHERE trial_id = 'R1'").fetchall()[0]
+    assert stored_mass == mass  # the record was checked as typed values; nothing drifted
+    assert temperature == 35 + 273.15
+    # The corrected cell is read with the import's cell rules, the record with its cross-column rules.
+    with pytest.raises(ValidationError, match="a catalysed trial needs the catalyst mass"):
+        store.correct(db, "trials", "R1", "catalyst_mass", "")
+    with pytest.raises(ValidationError, match="must be above absolute zero"):
+        store.correct(db, "trials", "R1", "temperature", "-300 degC")
+    with pytest.raises(ValidationError, match="is not a finite number"):
+        store.correct(db, "trials", "R1", "catalyst_mass", "lots mg")

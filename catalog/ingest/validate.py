@@ -27,11 +27,15 @@ _GAS_DEFAULTS = {c.column: c.default for c in _GAS.conditions}
 def check_catalysts(raw: RawTable) -> Checked:
     """Validate ``catalysts.csv``: types, units, ranges, unique ids, known element symbols."""
     checked = check_table(raw, CATALYST_COLUMNS)
-    header = _headers(raw).get("metal", "metal")
-    for i, symbol in checked.frame["metal"].dropna().items():
-        if not _is_element(symbol):
-            checked.problems.append(Problem(raw.label, int(i) + 2, header, f"'{symbol}' is not an element symbol"))
+    checked.problems.extend(catalyst_rules(checked.frame, raw.label, _headers(raw)))
     return checked
+
+
+def catalyst_rules(frame: pd.DataFrame, label: str, header_of: dict[str, str] | None = None) -> list[Problem]:
+    """The rules across a typed (SI) catalyst table: known element symbols. Also run on a corrected record."""
+    header = (header_of or {}).get("metal", "metal")
+    return [Problem(label, int(i) + 2, header, f"'{symbol}' is not an element symbol")
+            for i, symbol in frame["metal"].dropna().items() if not _is_element(symbol)]
 
 
 def _is_element(symbol: str) -> bool:
@@ -55,10 +59,23 @@ def check_trials(raw: RawTable, known_catalysts: set[str]) -> Checked:
     A trials table without data rows is a problem: there would be nothing to import.
     """
     checked = check_table(raw, TRIAL_COLUMNS)
-    frame, problems, label = checked.frame, checked.problems, raw.label
-    header_of = _headers(raw)
-    if frame.empty and not problems:
-        problems.append(Problem(label, None, None, "has a header but no data rows: there is no trial to import"))
+    if checked.frame.empty and not checked.problems:
+        checked.problems.append(
+            Problem(raw.label, None, None, "has a header but no data rows: there is no trial to import"))
+    checked.problems.extend(trial_rules(checked.frame, known_catalysts, raw.label, _headers(raw)))
+    return checked
+
+
+def trial_rules(frame: pd.DataFrame, known_catalysts: set[str], label: str,
+                header_of: dict[str, str] | None = None) -> list[Problem]:
+    """The rules across a typed (SI) trial table: measurements and their conditions, catalysts, blanks, water.
+
+    Also run on a corrected record, on its stored SI values. Fills the measurement defaults and adds
+    ``signal_scale`` and ``signal_shift`` to ``frame``; ``header_of`` names columns as written (else the contract
+    name).
+    """
+    problems: list[Problem] = []
+    header_of = header_of or {}
 
     def add(mask, column: str, message) -> None:
         header = header_of.get(column, column)
@@ -97,7 +114,7 @@ def check_trials(raw: RawTable, known_catalysts: set[str]) -> Checked:
                 frame.loc[(frame["measurement"] == kind) & frame[c.column].isna(), c.column] = c.default
     frame["signal_scale"] = scale
     frame["signal_shift"] = shift
-    return checked
+    return problems
 
 
 def _check_gas_over_water(frame: pd.DataFrame, known: pd.Series, add) -> None:

@@ -16,10 +16,10 @@ import pandas as pd
 from catalog.errors import CatalogError, Problem, ValidationError
 from catalog.ingest.columns import CATALYST_COLUMNS, TRIAL_COLUMNS
 from catalog.ingest.sources import RawTable
-from catalog.ingest.validate import check_catalysts, check_trials
+from catalog.ingest.tables import check_table
+from catalog.ingest.validate import catalyst_rules, trial_rules
 from catalog.store.db import connect, now, resolve_path, transaction, user
 from catalog.store.values import as_text, bound, is_missing, same_value
-from catalog.units import from_si
 
 #: Tables that take corrections, with their key and column contract. Table and column names put into correction
 #: SQL come only from here, never from the caller.
@@ -69,16 +69,6 @@ def _stored_row(con, table: str, key: str, record_id: str) -> dict:
     return frame.iloc[0].to_dict()
 
 
-def _cell_text(value, column) -> str:
-    """A stored SI value written back as an import cell in the column's reference unit."""
-    text = as_text(value)
-    if text is None:
-        return ""
-    if column.kind == "number" and column.unit is not None:
-        return repr(float(from_si(float(value), column.unit)))
-    return text
-
-
 def _correction_cell(column, value_text: str) -> tuple[str, str]:
     """Header and cell for a corrected value, so it is read exactly like an import cell with that header."""
     match = _NUMBER_AND_UNIT.match(value_text) if column.kind == "number" else None
@@ -88,19 +78,29 @@ def _correction_cell(column, value_text: str) -> tuple[str, str]:
     return f"{column.name} [{match.group(2)}]", match.group(1)
 
 
-def _check_record(table: str, columns, stored: dict, known: set[str], label: str,
-                  override: tuple[str, str, str] | None = None):
-    """Run the import checks over one stored record rebuilt as a one-row table, optionally with one cell replaced."""
-    headers, cells = [], []
-    for column in columns:
-        if override is not None and column.name == override[0]:
-            headers.append(override[1])
-            cells.append(override[2])
-        else:
-            headers.append(column.name)
-            cells.append(_cell_text(stored[column.name], column))
-    raw = RawTable(label, pd.DataFrame([cells], columns=headers, dtype=str))
-    return check_catalysts(raw) if table == "catalysts" else check_trials(raw, known)
+def _parse_cell(column, header: str, cell: str, label: str):
+    """The typed SI value of the corrected cell, read with the import's cell rules (type, unit, range).
+
+    Raises
+    ------
+    ValidationError
+        The cell breaks a cell rule (not a number, an unknown unit, out of range...).
+    """
+    checked = check_table(RawTable(label, pd.DataFrame({header: [cell]}, dtype=str)), (column,))
+    if checked.problems:
+        raise ValidationError([Problem(label, None, p.column, p.message) for p in checked.problems])
+    return checked.frame.at[0, column.name]
+
+
+def _record_problems(table: str, columns, record: dict, known: set[str],
+                     label: str) -> tuple[list[Problem], pd.DataFrame]:
+    """The import's rules across one typed (SI) record, and the record as they leave it (defaults filled).
+
+    Nothing is turned back into text or re-parsed.
+    """
+    frame = pd.DataFrame([{c.name: record[c.name] for c in columns}])
+    problems = catalyst_rules(frame, label) if table == "catalysts" else trial_rules(frame, known, label)
+    return problems, frame
 
 
 def _record_change(con, table: str, record_id: str, column: str, old: str | None, new: str | None,
@@ -165,14 +165,15 @@ def correct(db: str | os.PathLike | None, table: str, record_id: str, column: st
         if table == "trials" and column == "catalyst_id":
             _refuse_blank_switch(record_id, is_missing(stored[column]), not value_text.strip())
         known = {r[0] for r in con.execute("SELECT catalyst_id FROM catalysts").fetchall()}
-        # Stored values go back through a unit conversion and may trip a bound by one ulp; only what the correction
-        # newly breaks is reported.
-        before = {str(p) for p in _check_record(table, columns, stored, known, label).problems}
-        after = _check_record(table, columns, stored, known, label, (column, header, cell))
-        problems = [Problem(label, None, p.column, p.message) for p in after.problems if str(p) not in before]
+        value = _parse_cell(spec[column], header, cell, label)
+        # The record's rules run on typed SI values, as stored; only what the correction newly breaks is reported,
+        # so a rule added since the import does not block correcting an unrelated column.
+        before = {str(p) for p in _record_problems(table, columns, stored, known, label)[0]}
+        after, record = _record_problems(table, columns, stored | {column: value}, known, label)
+        problems = [Problem(label, None, p.column, p.message) for p in after if str(p) not in before]
         if problems:
             raise ValidationError(problems)
-        value = after.frame.at[0, column]
+        value = record.at[0, column]
         if same_value(value, stored[column]):
             raise CatalogError(f"{_noun(table)} '{record_id}' already has {column} = {as_text(stored[column])}; "
                                "nothing recorded")
