@@ -17,6 +17,7 @@ from scipy import constants
 
 from catalog import store
 from catalog.cli import main
+from catalog.datasets import synth
 from catalog.errors import DatabaseBusyError, ValidationError
 from catalog.ingest.sources import read_source
 from catalog.units import si_converter
@@ -353,3 +354,16 @@ def test_trace_problem_rows_are_file_lines_even_after_blank_lines(campaign, db):
     with pytest.raises(ValidationError) as err:
         store.import_campaign(db, read_source(campaign))
     assert [p.row for p in err.value.problems] == [11]
+
+
+def test_points_are_stored_in_file_order(tmp_path):
+    """Storage order is the file's row order (a join alone reorders rows once DuckDB runs it in parallel)."""
+    synth.write_bulk_campaign(tmp_path / "bulk", n_trials=3000, n_points=150, seed=1)
+    db = tmp_path / "x.duckdb"
+    store.import_campaign(db, read_source(tmp_path / "bulk"))
+    con = duckdb.connect(str(db), read_only=True)
+    stored = con.execute("SELECT trial_id, t FROM trace_points").df()  # storage order: no ORDER BY
+    con.close()
+    written = pd.read_csv(tmp_path / "bulk" / "traces.csv")
+    assert (stored["trial_id"].to_numpy() == written.iloc[:, 0].str.strip().to_numpy()).all()
+    assert np.array_equal(stored["t"].to_numpy(), written.iloc[:, 1].to_numpy(float))

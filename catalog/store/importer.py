@@ -207,7 +207,7 @@ def _write(stage, path: Path, source: CampaignSource, catalysts: pd.DataFrame, t
             )
             stage.execute(
                 "INSERT INTO store.trace_points SELECT trial_id, t, value FROM points "
-                "WHERE trial_id IN (SELECT trial_id FROM new_trial_rows)"
+                "WHERE trial_id IN (SELECT trial_id FROM new_trial_rows) ORDER BY line"
             )
     except duckdb.ConstraintException as exc:
         raise CatalogError(f"{path}: another import wrote some of these ids meanwhile; nothing was written "
