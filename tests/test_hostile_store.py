@@ -307,3 +307,14 @@ def test_corrections_check_typed_values_not_a_text_round_trip(db):
         store.correct(db, "trials", "R1", "temperature", "-300 degC")
     with pytest.raises(ValidationError, match="is not a finite number"):
         store.correct(db, "trials", "R1", "catalyst_mass", "lots mg")
+
+
+@pytest.mark.parametrize("what", ["file", "folder"])
+def test_an_import_into_a_read_only_database_is_refused_cleanly(db, tmp_path, capsys, what):
+    more = write_campaign(tmp_path / "more", trials=TRIALS.replace("\nR", "\nQ"),
+                          traces=_trace_rows().replace("\nR", "\nQ"))
+    with _read_only(*([db] if what == "file" else [db, db.parent])):
+        before = _digest(db)
+        err = _clean_exit_2(["import", str(more), "--db", str(db), "--quiet"], capsys)
+        assert "read-only" in err and "not changed" in err
+        assert _digest(db) == before

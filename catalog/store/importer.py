@@ -181,7 +181,9 @@ def _write(stage, path: Path, source: CampaignSource, catalysts: pd.DataFrame, t
             stage.execute("ATTACH ? AS store", [str(path)])
             break
         except duckdb.IOException as exc:
-            if not is_lock_error(exc) or time.monotonic() >= deadline:
+            if not is_lock_error(exc):
+                raise CatalogError(f"{path}: cannot be written ({first_line(exc)}); nothing was written") from exc
+            if time.monotonic() >= deadline:
                 raise DatabaseBusyError(
                     f"{path} is in use by another program{holder(exc)}; nothing was written") from exc
             time.sleep(0.2)
@@ -212,6 +214,9 @@ def _write(stage, path: Path, source: CampaignSource, catalysts: pd.DataFrame, t
     except duckdb.ConstraintException as exc:
         raise CatalogError(f"{path}: another import wrote some of these ids meanwhile; nothing was written "
                            f"({first_line(exc)})") from exc
+    except (duckdb.IOException, duckdb.TransactionException) as exc:
+        # A full disk, a folder that turned read-only: the transaction was rolled back.
+        raise CatalogError(f"{path}: cannot be written ({first_line(exc)}); nothing was written") from exc
     finally:
         stage.execute("DETACH store")
     return int(import_id)

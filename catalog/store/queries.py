@@ -46,10 +46,10 @@ def table_counts(db: str | os.PathLike | None = None) -> dict[str, int]:
 def data_stamp(db: str | os.PathLike | None = None) -> str:
     """A fingerprint of the campaign's content: changes with every import, correction, exclusion or purge.
 
-    Content, not bookkeeping: each row of catalysts, trials and trace points is hashed and the hashes summed,
-    one streaming scan per table (~25 ms per 10^6 points on one core), so a file changed behind the store's back
-    (a tampered backup restored, an edit with another tool) gets a new stamp and never serves stale cached figures.
-    The sum ignores row order, which does not change any figure.
+    Content, not bookkeeping: each row of catalysts, trials and trace points is hashed and the hashes summed, one
+    streaming scan per table (measured ~13 ms per 2×10^6 points once the file is open), so a file changed behind the
+    store's back (a tampered backup restored, an edit with another tool) gets a new stamp and never serves stale
+    cached figures. The sum ignores row order, which does not change any figure.
     """
     with connect(db, read_only=True) as con:
         row = con.execute(
