@@ -319,7 +319,7 @@ def render_report(results: Results, ranked: pd.DataFrame, top_k: int, points: pd
                                   "and the residuals of those fits."))
 
     meta = [("created", created.strftime("%Y-%m-%d %H:%M UTC")), ("software", f"catalog {__version__}"),
-            ("database", db_label), ("data fingerprint (ids and counts)", results.data_stamp),
+            ("database", db_label), ("data fingerprint (content hash)", results.data_stamp),
             ("data SHA-256 (every value)", content_hash), ("analysis run key", results.run_key),
             ("catalysts / trials analysed", f"{len(results.catalysts)} / {len(results.trials)}")]
     # Every catalyst flag (their codes appear in the ranking table) and the trial flags of the shortlist.
