@@ -12,13 +12,13 @@ import duckdb
 from catalog import __version__
 from catalog.errors import CatalogError, DatabaseBusyError
 from catalog.store.db import (
-    OFFLINE,
     RESTORING,
     connect,
     first_line,
     literal_path,
     migrate,
     now,
+    open_duckdb,
     remove_stale_restores,
     resolve_path,
     transaction,
@@ -138,7 +138,7 @@ def restore(directory: str | os.PathLike, db: str | os.PathLike | None, *, force
     remove_stale_restores(target)
     partial = target.with_name(f"{target.name}{RESTORING}{os.getpid()}")
     _remove_database(partial)
-    con = duckdb.connect(str(partial), config=OFFLINE)
+    con = open_duckdb(str(partial))
     try:
         migrate(con, upto=max(manifest["migrations"]))
         tables = _all_tables(con)

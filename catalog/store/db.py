@@ -123,12 +123,19 @@ def connect(db: str | os.PathLike | None = None, *, read_only: bool = False, wai
         con.close()
 
 
+def open_duckdb(database: str = ":memory:", read_only: bool = False) -> duckdb.DuckDBPyConnection:
+    """A DuckDB connection with the store's settings: no extension downloads, no progress bar on the terminal."""
+    con = duckdb.connect(database, read_only=read_only, config=OFFLINE)
+    con.execute("SET enable_progress_bar = false")  # a session setting: DuckDB refuses it in the connect config
+    return con
+
+
 def _open(path: Path, read_only: bool, wait: float) -> duckdb.DuckDBPyConnection:
     deadline = time.monotonic() + wait
     delay = 0.05
     while True:
         try:
-            return duckdb.connect(str(path), read_only=read_only, config=OFFLINE)
+            return open_duckdb(str(path), read_only)
         except duckdb.IOException as exc:
             if not read_only and is_read_only_error(exc):
                 raise ReadOnlyDatabase(f"{path} is read-only here ({first_line(exc)}); it can be ranked and "

@@ -19,12 +19,12 @@ from catalog.ingest.sources import CampaignSource
 from catalog.ingest.validate import check_catalysts, check_trials
 from catalog.store.db import (
     LOCK_WAIT_S,
-    OFFLINE,
     connect,
     first_line,
     holder,
     is_lock_error,
     now,
+    open_duckdb,
     resolve_path,
     transaction,
     user,
@@ -91,7 +91,7 @@ def import_campaign(
     problems += conflict
     overlap = [t for t in trials.frame["trial_id"].dropna() if t in stored_ids]
 
-    stage = duckdb.connect(config=OFFLINE)
+    stage = open_duckdb()
     try:
         say("reading trace points")
         trace_problems, trace_notes = stage_traces(stage, source, trials.frame)
