@@ -13,6 +13,7 @@ practice, no source). Very large or small values share one power of ten, written
 from __future__ import annotations
 
 import math
+from decimal import Decimal
 import re
 
 import numpy as np
@@ -82,7 +83,8 @@ def _exponent(x: float) -> int:
 def _digits(x: float, decimals: int, exponent: int) -> str:
     """``x`` written with ``decimals`` decimal places after dividing by 10**exponent (minus sign typeset)."""
     shown = max(decimals + exponent, 0)
-    text = f"{round_to(x, decimals) / 10.0 ** exponent:.{shown}f}"
+    # Decimal scaling: 10.0 ** exponent underflows to 0 for subnormal values (x ~ 1e-324).
+    text = f"{Decimal(repr(round_to(x, decimals))).scaleb(-exponent):.{shown}f}"
     return text.replace("-", "−")
 
 
@@ -114,7 +116,8 @@ def format_interval(value, low, high, unit: str | None = None, digits: int = UNC
     decimals = interval_decimals(value, low, high, digits)
     if decimals is None:
         return format_number(value, unit, currency=currency)
-    exponent = _exponent(float(value))
+    # The power of ten follows the largest of the three, so a value near zero with a wide interval reads well.
+    exponent = _exponent(max(abs(float(value)), abs(float(low)), abs(float(high))))
     body = (f"{_digits(float(value), decimals, exponent)} [{_digits(float(low), decimals, exponent)}, "
             f"{_digits(float(high), decimals, exponent)}]")
     return _with_unit(body, exponent, unit, currency, grouped=False)
@@ -127,7 +130,7 @@ def format_pm(value, uncertainty, unit: str | None = None, digits: int = UNCERTA
     decimals = decimals_for(uncertainty, digits)
     if decimals is None or not _finite(value):
         return format_number(value, unit, currency=currency)
-    exponent = _exponent(float(value))
+    exponent = _exponent(max(abs(float(value)), abs(float(uncertainty))))
     body = f"{_digits(float(value), decimals, exponent)} ± {_digits(float(uncertainty), decimals, exponent)}"
     return _with_unit(body, exponent, unit, currency, grouped=True)
 
