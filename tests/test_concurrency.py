@@ -77,7 +77,7 @@ def test_a_long_hold_gives_a_clear_busy_message(tmp_path):
     writers = [_cli("exclude", "trial", "R2", "--db", db), _cli("import", tmp_path / "other", "--db", db, "--quiet")]
     results = [w.communicate(timeout=120) for w in writers]
     holder.communicate(timeout=30)  # let go only after both writers gave up
-    for proc, (out, err) in zip(writers, results):
+    for proc, (_out, err) in zip(writers, results, strict=True):
         assert proc.returncode == 2
         assert "in use by another program" in err
         assert "Traceback" not in err

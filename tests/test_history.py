@@ -126,7 +126,7 @@ def test_exclude_include_are_reversible_and_recorded(db):
     store.exclude(db, "catalysts", "PdC-A", reason="contaminated batch")
     assert "R1" not in set(store.load_campaign(db)[1]["trial_id"])  # a catalyst's exclusion hides its trials
     log = store.history(db)
-    assert list(zip(log["record_id"], log["old_value"], log["new_value"])) == [
+    assert list(zip(log["record_id"], log["old_value"], log["new_value"], strict=True)) == [
         ("R2", "false", "true"), ("R2", "true", "false"), ("PdC-A", "false", "true")]
     assert store.table_counts(db)["trials"] == 4  # nothing deleted
 

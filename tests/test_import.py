@@ -215,7 +215,7 @@ def test_bad_cell_is_located_and_changes_nothing(campaign, db, file, row, column
         (lambda t: t.replace("R1,60,", "R1,sixty,", 1), 3, "time 'sixty' is not a finite number"),
         (lambda t: t.replace("R1,60,", "R1,0,", 1), 3, "does not increase"),
         (lambda t: t + "R9,0,1.0\n", 42, "not in the trials table"),
-        (lambda t: "\n".join(l for l in t.splitlines() if not l.startswith("R4")) + "\n", 5, "has no trace points"),
+        (lambda t: "\n".join(line for line in t.splitlines() if not line.startswith("R4")) + "\n", 5, "has no trace points"),
         (lambda t: re.sub(r"^R2,0,.*$", "R2,0,", t, count=1, flags=re.M), 12, "value '' is not a finite number"),
     ],
 )

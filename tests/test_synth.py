@@ -44,9 +44,10 @@ def _frames(c):
 
 
 def test_same_seed_gives_identical_frames(demo):
-    for a, b in zip(_frames(demo), _frames(synth.demo_campaign())):
+    for a, b in zip(_frames(demo), _frames(synth.demo_campaign()), strict=True):
         pd.testing.assert_frame_equal(a, b)
-    for a, b in zip(_frames(synth.known_kinetics_campaign(seed=3)), _frames(synth.known_kinetics_campaign(seed=3))):
+    same = synth.known_kinetics_campaign(seed=3)
+    for a, b in zip(_frames(same), _frames(synth.known_kinetics_campaign(seed=3)), strict=True):
         pd.testing.assert_frame_equal(a, b)
 
 

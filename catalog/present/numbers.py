@@ -13,8 +13,8 @@ practice, no source). Very large or small values share one power of ten, written
 from __future__ import annotations
 
 import math
-from decimal import Decimal
 import re
+from decimal import Decimal
 
 import numpy as np
 import pandas as pd
