@@ -10,7 +10,7 @@ import json
 import duckdb
 import pandas as pd
 import pytest
-from test_import import write_campaign
+from support import write_campaign
 
 from catalog import store
 from catalog.cli import main

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
-from test_kinetics import synthetic_trace
+from support import synthetic_trace
 
 from catalog.core.batch import COLUMNS, curve_values, fit_traces
 from catalog.core.kinetics import MODELS, fit_trace, model_curve

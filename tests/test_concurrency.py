@@ -12,7 +12,7 @@ import textwrap
 import time
 
 import duckdb
-from test_import import write_campaign
+from support import write_campaign
 
 from catalog import store
 from catalog.datasets import synth

@@ -15,7 +15,7 @@ import time
 
 import duckdb
 import pytest
-from test_import import write_campaign
+from support import write_campaign
 
 from catalog import store
 from catalog.datasets import synth

@@ -14,7 +14,7 @@ from pathlib import Path
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
-from test_import import snapshot, write_campaign
+from support import snapshot, write_campaign
 
 from catalog import store
 from catalog.errors import CatalogError

@@ -15,7 +15,7 @@ import pandas as pd
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
-from test_import import TRIALS, _trace_rows, snapshot, write_campaign
+from support import TRIALS, snapshot, trace_rows, write_campaign
 
 from catalog import store
 from catalog.cli import main
@@ -179,7 +179,7 @@ def test_hostile_text_round_trips_through_import_and_correct(tmp_path, text):
     frame.loc[0, "trial_id"] = cleaned
     frame["notes"] = ["", text, "", ""]
     frame.loc[0, "operator"] = cleaned
-    traces = _trace_rows().replace("\nR1,", "\n" + '"' + cleaned.replace('"', '""') + '",')
+    traces = trace_rows().replace("\nR1,", "\n" + '"' + cleaned.replace('"', '""') + '",')
     folder = write_campaign(tmp_path / "camp", trials=frame.to_csv(index=False), traces=traces)
     path = tmp_path / "hostile.duckdb"
     report = store.import_campaign(path, read_source(folder))

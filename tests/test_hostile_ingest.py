@@ -16,7 +16,7 @@ from pathlib import Path
 import openpyxl
 import pandas as pd
 import pytest
-from test_import import CATALYSTS, TRIALS, _replace_cell, _trace_rows, snapshot, write_campaign
+from support import CATALYSTS, TRIALS, replace_cell, snapshot, trace_rows, write_campaign
 
 from catalog import store
 from catalog.cli import main
@@ -60,40 +60,40 @@ def _add_column(text: str, header: str, value: str) -> str:
 
 #: (case id, files to write over the valid campaign, text the message must contain)
 CSV_ATTACKS = [
-    ("temperature 5000 degC", {"trials": _replace_cell(TRIALS, 2, "temperature", "5000")},
+    ("temperature 5000 degC", {"trials": replace_cell(TRIALS, 2, "temperature", "5000")},
      ["trials.csv, row 2, column 'temperature [degC]'", "plausible range"]),
-    ("temperature 1e308 degC", {"trials": _replace_cell(TRIALS, 3, "temperature", "1e308")},
+    ("temperature 1e308 degC", {"trials": replace_cell(TRIALS, 3, "temperature", "1e308")},
      ["trials.csv, row 3, column 'temperature [degC]'", "plausible range"]),
-    ("temperature 1e400 (inf as text)", {"trials": _replace_cell(TRIALS, 2, "temperature", "1e400")},
+    ("temperature 1e400 (inf as text)", {"trials": replace_cell(TRIALS, 2, "temperature", "1e400")},
      ["trials.csv, row 2, column 'temperature [degC]'", "not a finite number"]),
     ("temperature in K far too low", {"trials": TRIALS.replace("temperature [degC]", "temperature [K]")},
      ["column 'temperature [K]'", "plausible range for temperature, 150 K to 1000 K"]),
-    ("catalyst mass 1e308 mg", {"trials": _replace_cell(TRIALS, 2, "catalyst_mass", "1e308")},
+    ("catalyst mass 1e308 mg", {"trials": replace_cell(TRIALS, 2, "catalyst_mass", "1e308")},
      ["trials.csv, row 2, column 'catalyst_mass [mg]'", "plausible"]),
     ("gas pressure overflows in SI", {"trials": _add_column(TRIALS, "gas_pressure [kPa]", "1.7e308")},
      ["trials.csv, row 2, column 'gas_pressure [kPa]'", "too large to hold once converted to SI"]),
-    ("product ratio 1e308", {"trials": _replace_cell(TRIALS, 2, "product_ratio", "1e308")},
+    ("product ratio 1e308", {"trials": replace_cell(TRIALS, 2, "product_ratio", "1e308")},
      ["trials.csv, row 2, column 'product_ratio'", "plausible"]),
-    ("time 1e308 h", {"traces": _trace_rows().replace("time [s]", "time [h]").replace("R1,60,", "R1,1e308,")},
+    ("time 1e308 h", {"traces": trace_rows().replace("time [s]", "time [h]").replace("R1,60,", "R1,1e308,")},
      ["traces.csv, row 3, column 'time [h]'", "plausible range"]),
-    ("time -1e308 s", {"traces": _trace_rows().replace("R1,0,", "R1,-1e308,")},
+    ("time -1e308 s", {"traces": trace_rows().replace("R1,0,", "R1,-1e308,")},
      ["traces.csv, row 2, column 'time [s]'", "plausible range"]),
-    ("value overflows in SI", {"traces": re.sub(r"^R3,60,.*$", "R3,60,1e306", _trace_rows(), count=1, flags=re.M)},
+    ("value overflows in SI", {"traces": re.sub(r"^R3,60,.*$", "R3,60,1e306", trace_rows(), count=1, flags=re.M)},
      ["traces.csv", "column 'value'", "too large to hold once converted to SI"]),
     ("duplicate column in trials, different units",
      {"trials": _add_column(TRIALS, "temperature [K]", "300")},
      ["trials.csv, row 1, column 'temperature [K]'", "column 'temperature' appears twice"]),
     ("duplicate column in catalysts", {"catalysts": _add_column(CATALYSTS, "metal", "Pt")},
      ["catalysts.csv, row 1, column 'metal'", "appears twice"]),
-    ("duplicate column in traces", {"traces": _add_column(_trace_rows(), "value", "1")},
+    ("duplicate column in traces", {"traces": _add_column(trace_rows(), "value", "1")},
      ["traces.csv, row 1, column 'value'", "appears twice"]),
     ("semicolon trials", {"trials": TRIALS.replace(",", ";")},
      ["trials.csv, row 1", "separated by ';'", "comma-separated"]),
-    ("semicolon traces", {"traces": _trace_rows().replace(",", ";")},
+    ("semicolon traces", {"traces": trace_rows().replace(",", ";")},
      ["traces.csv, row 1", "separated by ';'"]),
     ("tab catalysts", {"catalysts": CATALYSTS.replace(",", "\t")},
      ["catalysts.csv, row 1", "separated by tab"]),
-    ("blank trial with a catalyst mass", {"trials": _replace_cell(TRIALS, 5, "catalyst_mass", "10")},
+    ("blank trial with a catalyst mass", {"trials": replace_cell(TRIALS, 5, "catalyst_mass", "10")},
      ["trials.csv, row 5, column 'catalyst_mass [mg]'", "blank trial"]),
     ("header-only files", {"catalysts": CATALYSTS.splitlines()[0] + "\n", "trials": _trials_header() + "\n",
                            "traces": "trial_id,time [s],value\n"},
@@ -107,10 +107,10 @@ CSV_ATTACKS = [
     ("empty traces file", {"traces": ""}, ["traces.csv, column 'trial_id': required column is missing"]),
     ("traces header only", {"traces": "trial_id,time [s],value\n"},
      ["trials.csv, row 2, column 'trial_id': trial 'R1' has no trace points in traces.csv"]),
-    ("ragged traces row", {"traces": _trace_rows().replace("R1,60,", "R1,60,7,8,")}, ["traces.csv"]),
-    ("binary junk in traces", {"traces": _trace_rows().replace("R2,60,", "R2,\x00\x01,")},
+    ("ragged traces row", {"traces": trace_rows().replace("R1,60,", "R1,60,7,8,")}, ["traces.csv"]),
+    ("binary junk in traces", {"traces": trace_rows().replace("R2,60,", "R2,\x00\x01,")},
      ["traces.csv, row", "column 'time [s]'"]),
-    ("time in a temperature unit", {"traces": _trace_rows().replace("time [s]", "time [degC]")},
+    ("time in a temperature unit", {"traces": trace_rows().replace("time [s]", "time [degC]")},
      ["traces.csv, row 1, column 'time [degC]'"]),
     ("not UTF-8", {"catalysts": CATALYSTS.replace("carbon", "carb\udcffon")}, ["catalysts.csv", "not UTF-8"]),
 ]
@@ -118,7 +118,7 @@ CSV_ATTACKS = [
 
 @pytest.mark.parametrize("files, words", [(f, w) for _, f, w in CSV_ATTACKS], ids=[c for c, _, _ in CSV_ATTACKS])
 def test_csv_attack_is_refused_cleanly(seeded, tmp_path, capsys, files, words):
-    texts = {"catalysts": CATALYSTS, "trials": TRIALS, "traces": _trace_rows(), **files}
+    texts = {"catalysts": CATALYSTS, "trials": TRIALS, "traces": trace_rows(), **files}
     folder = tmp_path / "attack"
     folder.mkdir()
     for name, text in texts.items():
@@ -153,7 +153,7 @@ def _workbook(path: Path, sheets: dict[str, list[list]]) -> Path:
 
 def _sheets(trials: str = TRIALS) -> dict[str, list[list]]:
     return {name: [line.split(",") for line in text.splitlines()]
-            for name, text in (("catalysts", CATALYSTS), ("trials", trials), ("traces", _trace_rows()))}
+            for name, text in (("catalysts", CATALYSTS), ("trials", trials), ("traces", trace_rows()))}
 
 
 def _inflate_cell(book: Path, target: Path, placeholder: str, size: int) -> Path:
@@ -177,7 +177,7 @@ def _inflate_cell(book: Path, target: Path, placeholder: str, size: int) -> Path
 def test_workbook_bomb_is_refused_before_parsing(seeded, tmp_path, capsys, monkeypatch):
     # The same attack as the 1 GiB cell below, scaled down with the limit so it runs in the quick loop.
     monkeypatch.setattr(archive, "WORKBOOK_UNPACKED_LIMIT", 2 * 2**20)
-    book = _workbook(tmp_path / "plain.xlsx", _sheets(_replace_cell(TRIALS, 2, "operator", "BOMB")))
+    book = _workbook(tmp_path / "plain.xlsx", _sheets(replace_cell(TRIALS, 2, "operator", "BOMB")))
     bomb = _inflate_cell(book, tmp_path / "bomb.xlsx", "BOMB", 4 * 2**20)
     err = _attack(seeded, tmp_path, bomb, capsys)
     assert "bomb.xlsx: 'xl/" in err and "unpacks to more than the" in err
@@ -187,7 +187,7 @@ def test_workbook_bomb_is_refused_before_parsing(seeded, tmp_path, capsys, monke
 def test_one_gib_cell_workbook_is_refused_with_bounded_memory(seeded, tmp_path, capsys):
     import resource
 
-    book = _workbook(tmp_path / "plain.xlsx", _sheets(_replace_cell(TRIALS, 2, "operator", "BOMB")))
+    book = _workbook(tmp_path / "plain.xlsx", _sheets(replace_cell(TRIALS, 2, "operator", "BOMB")))
     bomb = _inflate_cell(book, tmp_path / "bomb.xlsx", "BOMB", 2**30)
     assert bomb.stat().st_size < 3 * 2**20  # a small upload
     before = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss

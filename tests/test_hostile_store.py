@@ -16,7 +16,7 @@ from pathlib import Path
 import duckdb
 import pandas as pd
 import pytest
-from test_import import TRIALS, _trace_rows, write_campaign
+from support import TRIALS, trace_rows, write_campaign
 
 from catalog import store
 from catalog.analysis.results import get_results
@@ -196,14 +196,14 @@ def test_a_killed_restore_leaves_no_side_file(db, tmp_path):
 @pytest.mark.parametrize("name", ["*", "[ab]", "c?mp", "{x,y}"])
 def test_a_folder_named_like_a_glob_is_read_literally(tmp_path, name):
     # A sibling folder the glob would also match, with a trace for an unknown trial.
-    write_campaign(tmp_path / "ab", traces=_trace_rows() + "INTRUDER,0,1\n")
-    write_campaign(tmp_path / "camp", traces=_trace_rows() + "INTRUDER,0,1\n")
+    write_campaign(tmp_path / "ab", traces=trace_rows() + "INTRUDER,0,1\n")
+    write_campaign(tmp_path / "camp", traces=trace_rows() + "INTRUDER,0,1\n")
     folder = write_campaign(tmp_path / name)
     db = tmp_path / "x.duckdb"
     report = store.import_campaign(db, read_source(folder))
     assert report.n_trials == 4 and report.n_points == 40
     # And a faulty file in such a folder is located in that file, not its neighbours.
-    bad = write_campaign(tmp_path / f"bad{name}", traces=_trace_rows().replace("R1,60,", "R1,sixty,"))
+    bad = write_campaign(tmp_path / f"bad{name}", traces=trace_rows().replace("R1,60,", "R1,sixty,"))
     with pytest.raises(ValidationError, match="traces.csv, row 3, column 'time"):
         store.import_campaign(tmp_path / "y.duckdb", read_source(bad))
     # Backups into and out of such folders.
@@ -312,7 +312,7 @@ def test_corrections_check_typed_values_not_a_text_round_trip(db):
 @pytest.mark.parametrize("what", ["file", "folder"])
 def test_an_import_into_a_read_only_database_is_refused_cleanly(db, tmp_path, capsys, what):
     more = write_campaign(tmp_path / "more", trials=TRIALS.replace("\nR", "\nQ"),
-                          traces=_trace_rows().replace("\nR", "\nQ"))
+                          traces=trace_rows().replace("\nR", "\nQ"))
     with _read_only(*([db] if what == "file" else [db, db.parent])):
         before = _digest(db)
         err = _clean_exit_2(["import", str(more), "--db", str(db), "--quiet"], capsys)

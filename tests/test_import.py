@@ -14,6 +14,7 @@ import pandas as pd
 import periodictable
 import pytest
 from scipy import constants
+from support import CATALYSTS, TRIALS, replace_cell, snapshot, trace_rows, write_campaign
 
 from catalog import store
 from catalog.cli import main
@@ -21,35 +22,6 @@ from catalog.datasets import synth
 from catalog.errors import DatabaseBusyError, ValidationError
 from catalog.ingest.sources import read_source
 from catalog.units import si_converter
-
-CATALYSTS = """catalyst_id,metal,metal_loading [wt%],dispersion [%],site_density [umol/g],surface_area [m^2/g],support
-PdC-A,Pd,5,25,,900,carbon
-RuAl-B,Ru,1.5,40,,180,alumina
-CoSi-C,Co,10,,35,250,silica
-"""
-TRIALS = """trial_id,catalyst_id,temperature [degC],measurement,signal_unit,catalyst_mass [mg],limiting_amount [mmol],product_ratio,gas_molar_mass [g/mol],headspace_volume [mL],liquid_volume [mL],operator,started_at
-R1,PdC-A,30,gas_volume,mL,12.5,0.8,3,,,,ana,2026-10-01T09:00
-R2,RuAl-B,40,mass_loss,g,20,0.8,3,2.016,,,ben,2026-10-01T11:00
-R3,CoSi-C,50,pressure,kPa,15,0.8,3,,60,,ana,
-R4,,50,concentration,mmol/L,,0.8,1,,,25,ben,
-"""
-
-
-def _trace_rows() -> str:
-    rows = ["trial_id,time [s],value"]
-    t = np.arange(0, 600, 60.0)
-    for trial, base, span in (("R1", 1.2, 20.0), ("R2", 31.4, -0.004), ("R3", 101.3, 8.0), ("R4", 0.0, 30.0)):
-        for ti in t:
-            rows.append(f"{trial},{ti:g},{base + span * (1 - np.exp(-ti / 200)):.6f}")
-    return "\n".join(rows) + "\n"
-
-
-def write_campaign(folder: Path, catalysts=CATALYSTS, trials=TRIALS, traces=None) -> Path:
-    folder.mkdir(parents=True, exist_ok=True)
-    (folder / "catalysts.csv").write_text(catalysts, encoding="utf-8")
-    (folder / "trials.csv").write_text(trials, encoding="utf-8")
-    (folder / "traces.csv").write_text(traces if traces is not None else _trace_rows(), encoding="utf-8")
-    return folder
 
 
 @pytest.fixture
@@ -60,16 +32,6 @@ def campaign(tmp_path) -> Path:
 @pytest.fixture
 def db(tmp_path) -> Path:
     return tmp_path / "store.duckdb"
-
-
-def snapshot(db: Path) -> dict[str, pd.DataFrame]:
-    if not db.exists():
-        return {}
-    con = duckdb.connect(str(db), read_only=True)
-    try:
-        return {t: con.execute(f"SELECT * FROM {t} ORDER BY ALL").df() for t in ("imports", "catalysts", "trials", "trace_points")}
-    finally:
-        con.close()
 
 
 def test_round_trip_counts_and_si(campaign, db):
@@ -107,7 +69,7 @@ def test_cli_import_twice_does_not_duplicate(campaign, db, capsys):
 def test_reimport_edited_campaign_skips_identical_rows(campaign, db):
     store.import_campaign(db, read_source(campaign))
     (campaign / "trials.csv").write_text(TRIALS + "R5,PdC-A,30,gas_volume,mL,12.5,0.8,3,,,,ana,\n")
-    (campaign / "traces.csv").write_text(_trace_rows() + "R5,0,1.0\nR5,60,2.0\nR5,120,2.5\n")
+    (campaign / "traces.csv").write_text(trace_rows() + "R5,0,1.0\nR5,60,2.0\nR5,120,2.5\n")
     report = store.import_campaign(db, read_source(campaign))
     assert report.n_trials == 1 and report.n_points == 3
     assert sorted(report.skipped_trials) == ["R1", "R2", "R3", "R4"]
@@ -139,7 +101,7 @@ def test_hostile_id_is_stored_verbatim(tmp_path, db):
 def test_bom_and_crlf_are_valid(tmp_path, db):
     folder = tmp_path / "crlf"
     folder.mkdir()
-    for name, text in (("catalysts.csv", CATALYSTS), ("trials.csv", TRIALS), ("traces.csv", _trace_rows())):
+    for name, text in (("catalysts.csv", CATALYSTS), ("trials.csv", TRIALS), ("traces.csv", trace_rows())):
         (folder / name).write_bytes(b"\xef\xbb\xbf" + text.replace("\n", "\r\n").encode())
     report = store.import_campaign(db, read_source(folder))
     assert (report.n_catalysts, report.n_trials, report.n_points) == (3, 4, 40)
@@ -152,16 +114,6 @@ def test_xlsx_workbook_imports_same_rows(campaign, tmp_path, db):
             pd.read_csv(campaign / f"{sheet}.csv", dtype=str, keep_default_na=False).to_excel(writer, sheet_name=sheet, index=False)
     report = store.import_campaign(db, read_source(book))
     assert (report.n_catalysts, report.n_trials, report.n_points) == (3, 4, 40)
-
-
-def _replace_cell(text: str, line: int, column: str, value: str) -> str:
-    lines = text.splitlines()
-    header = lines[0].split(",")
-    col = [i for i, h in enumerate(header) if h.split(" [")[0] == column][0]
-    cells = lines[line - 1].split(",")
-    cells[col] = value
-    lines[line - 1] = ",".join(cells)
-    return "\n".join(lines) + "\n"
 
 
 # (file, spreadsheet row, column, new text, expected words in the message)
@@ -195,8 +147,8 @@ def test_bad_cell_is_located_and_changes_nothing(campaign, db, file, row, column
     texts = {"catalysts": CATALYSTS.replace("PdC-A", "PdC-X").replace("RuAl-B", "RuAl-Y").replace("CoSi-C", "CoSi-Z"),
              "trials": TRIALS.replace("PdC-A", "PdC-X").replace("RuAl-B", "RuAl-Y").replace("CoSi-C", "CoSi-Z")
              .replace("R1,", "S1,").replace("R2,", "S2,").replace("R3,", "S3,").replace("R4,", "S4,")}
-    traces = _trace_rows().replace("R", "S")
-    texts[file] = _replace_cell(texts[file], row, column, value)
+    traces = trace_rows().replace("R", "S")
+    texts[file] = replace_cell(texts[file], row, column, value)
     folder = write_campaign(campaign.parent / "bad", texts["catalysts"], texts["trials"], traces)
     with pytest.raises(ValidationError) as err:
         store.import_campaign(db, read_source(folder))
@@ -220,7 +172,7 @@ def test_bad_cell_is_located_and_changes_nothing(campaign, db, file, row, column
     ],
 )
 def test_bad_trace_rows_are_located(campaign, db, edit, row, words):
-    write_campaign(campaign, traces=edit(_trace_rows()))
+    write_campaign(campaign, traces=edit(trace_rows()))
     with pytest.raises(ValidationError) as err:
         store.import_campaign(db, read_source(campaign))
     assert any(p.row == row and words in p.message for p in err.value.problems), [str(p) for p in err.value.problems]
@@ -229,7 +181,7 @@ def test_bad_trace_rows_are_located(campaign, db, edit, row, words):
 
 def test_missing_required_column_and_every_problem_at_once(campaign, db):
     trials = TRIALS.replace("measurement,", "method,")
-    write_campaign(campaign, trials=_replace_cell(trials, 3, "temperature", "hot"))
+    write_campaign(campaign, trials=replace_cell(trials, 3, "temperature", "hot"))
     with pytest.raises(ValidationError) as err:
         store.import_campaign(db, read_source(campaign))
     text = str(err.value)
@@ -245,7 +197,7 @@ def test_missing_file_is_reported(tmp_path, db):
 
 
 def test_cli_bad_input_exit_code_and_no_traceback(campaign, db, capsys):
-    write_campaign(campaign, trials=_replace_cell(TRIALS, 2, "temperature", "warm"))
+    write_campaign(campaign, trials=replace_cell(TRIALS, 2, "temperature", "warm"))
     assert main(["import", str(campaign), "--db", str(db), "--quiet"]) == 2
     err = capsys.readouterr().err
     assert "trials.csv, row 2, column 'temperature [degC]'" in err
@@ -347,7 +299,7 @@ def test_gas_over_water_needs_liquid_water_and_a_pressure_above_its_vapour(campa
 
 
 def test_trace_problem_rows_are_file_lines_even_after_blank_lines(campaign, db):
-    lines = _trace_rows().splitlines()
+    lines = trace_rows().splitlines()
     lines.insert(3, "")  # a blank line at file line 4
     lines[10] = lines[10].rsplit(",", 1)[0] + ",abc"  # file line 11
     write_campaign(campaign, traces="\n".join(lines) + "\n")

@@ -8,25 +8,9 @@ import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
+from support import synthetic_trace
 
 from catalog.core.kinetics import MODELS, TraceFit, fit_trace, model_curve
-
-
-def synthetic_trace(order, rng, n=60, t_end=1800.0, plateau=2e-3, kappa=4.0, offset=0.0, noise=0.01):
-    """Invented trace of known kinetics (recovery tests only): returns t, amount and the true r0.
-
-    ``kappa`` is the curvature over the trace (k t_end, b t_end, or t_end / tau for zero order); ``noise`` is the
-    Gaussian noise as a fraction of the plateau.
-    """
-    t = np.linspace(0.0, t_end, n)
-    x = kappa * t / t_end
-    if order == "zero":
-        shape, r0 = np.minimum(x, 1.0), plateau * kappa / t_end
-    elif order == "first":
-        shape, r0 = -np.expm1(-x), plateau * kappa / t_end
-    else:
-        shape, r0 = x / (1 + x), plateau * kappa / t_end
-    return t, offset + plateau * shape + rng.normal(0.0, noise * plateau, n), r0
 
 
 @pytest.mark.parametrize("order,kappa", [("zero", 1.6), ("first", 4.0), ("second", 12.0)])
