@@ -1,5 +1,6 @@
 """Checks for catalog.core.transport (Weisz-Prater, Mears, Thiele) and catalog.core.hazard (adiabatic rise, pressure)."""
 
+import mpmath
 import numpy as np
 import pytest
 from scipy.constants import R, physical_constants
@@ -61,7 +62,6 @@ def test_effectiveness_factor_limits():
 def test_effectiveness_factor_against_arbitrary_precision(phi):
     # Source: mpmath (general-purpose arbitrary-precision library) evaluating the same closed form at 40 digits,
     # so cancellation near φ = 0 is checked; rel. 1e-12.
-    mpmath = pytest.importorskip("mpmath")
     with mpmath.workdps(40):
         p = mpmath.mpf(phi)
         exact = float(3 / p**2 * (p * mpmath.coth(p) - 1))
