@@ -4,7 +4,7 @@ Run::
 
     python benchmarks/bench.py --trials 10000 --points 200 [--workdir DIR] [--skip-baseline] [--baseline-trials N]
 
-A clean synthetic campaign with known kinetics (:func:`catalog.datasets.synth.write_bulk_campaign`) is written to the work
+A clean synthetic campaign with known kinetics (:func:`catalog.datasets.bulk.write_bulk_campaign`) is written to the work
 folder, then each phase runs in its own Python process so that its peak resident memory (``ru_maxrss``) is its own:
 
 - ``read_csv``: DuckDB reading the trace file into an in-memory table and nothing else, the floor for an import;
@@ -43,7 +43,7 @@ from scipy.optimize import OptimizeWarning, curve_fit
 from catalog import store
 from catalog.analysis import results
 from catalog.analysis.settings import Settings
-from catalog.datasets import synth
+from catalog.datasets import bulk
 from catalog.ingest import sources
 
 # Targets of the campaign-scale issue, as ratios measured in one run on the same files.
@@ -213,7 +213,7 @@ def main(argv: list[str] | None = None) -> int:
               f"{os.cpu_count()} CPU cores, load average {os.getloadavg()[0]:.1f} at start; "
               f"Python {sys.version.split()[0]}, DuckDB {duckdb.__version__}, pandas {pd.__version__}")
         start = time.perf_counter()
-        made = synth.write_bulk_campaign(work / CAMPAIGN, n, args.points, seed=args.seed)
+        made = bulk.write_bulk_campaign(work / CAMPAIGN, n, args.points, seed=args.seed)
         size = (work / CAMPAIGN / sources.TRACES_FILE).stat().st_size
         print(f"synthetic campaign: {time.perf_counter() - start:.1f} s, {made['trials']:,} trials "
               f"({made['blank_trials']:,} blanks), trace file {size / 2**20:,.0f} MiB in {work}")

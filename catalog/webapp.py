@@ -27,7 +27,7 @@ from catalog import store
 from catalog.analysis import diagnostics, ranking, results
 from catalog.analysis.settings import Settings
 from catalog.core import hazard
-from catalog.datasets import synth
+from catalog.datasets import synth, demo
 from catalog.errors import CatalogError, Problem, ValidationError
 from catalog.core.measurements import MEASUREMENTS
 from catalog.ingest import sources, validate
@@ -84,7 +84,7 @@ def _seed_if_new(db: str) -> bool:
         folder = SAMPLE_FOLDER
         if not (folder / sources.TRACES_FILE).is_file():
             folder = Path(tmp) / "demo"
-            synth.write_campaign(synth.demo_campaign(), folder)
+            synth.write_campaign(demo.demo_campaign(), folder)
         store.import_campaign(db, sources.read_source(folder), demo=True, who="catalog demo")
     return True
 

@@ -5,7 +5,8 @@ Run ``python sample_campaign/make_sample.py``; the output is byte-for-byte the s
 
 from pathlib import Path
 
-from catalog.datasets.synth import demo_campaign, write_campaign
+from catalog.datasets.demo import demo_campaign
+from catalog.datasets.synth import write_campaign
 
 SEED = 2026  # fixed so the committed files never change unless the generator does
 

@@ -5,7 +5,8 @@ from __future__ import annotations
 import pytest
 
 from catalog import store
-from catalog.datasets.synth import demo_campaign, write_campaign
+from catalog.datasets.demo import demo_campaign
+from catalog.datasets.synth import write_campaign
 from catalog.ingest import sources
 
 

@@ -91,7 +91,8 @@ def test_trials_show_measurement_kinds_in_plain_words(demo_db, capsys):
 
 
 def test_a_refused_header_does_not_cascade_and_repeats_collapse(tmp_path, capsys):
-    from catalog.datasets.synth import demo_campaign, write_campaign
+    from catalog.datasets.demo import demo_campaign
+    from catalog.datasets.synth import write_campaign
 
     folder = tmp_path / "campaign"
     write_campaign(demo_campaign(), folder)

@@ -15,7 +15,7 @@ import duckdb
 from support import write_campaign
 
 from catalog import store
-from catalog.datasets import synth
+from catalog.datasets import bulk
 from catalog.ingest.sources import read_source
 
 
@@ -42,7 +42,7 @@ def _cli(*args) -> subprocess.Popen:
 def test_readers_keep_working_while_an_import_writes(tmp_path):
     db = tmp_path / "store.duckdb"
     store.import_campaign(db, read_source(write_campaign(tmp_path / "small")))
-    synth.write_bulk_campaign(tmp_path / "bulk", n_trials=1500, n_points=150, seed=1)
+    bulk.write_bulk_campaign(tmp_path / "bulk", n_trials=1500, n_points=150, seed=1)
     writer = _cli("import", tmp_path / "bulk", "--db", db, "--quiet")
     seen = []
     while writer.poll() is None:

@@ -18,7 +18,7 @@ import pytest
 from support import write_campaign
 
 from catalog import store
-from catalog.datasets import synth
+from catalog.datasets.bulk import write_bulk_campaign
 from catalog.ingest.sources import read_source
 
 N_TRIALS = 2500
@@ -30,7 +30,7 @@ def bulk(tmp_path_factory):
     """A campaign big enough that the import takes a second or two, and a store already holding a small import."""
     root = tmp_path_factory.mktemp("crash")
     # seed 1 gives every trial strictly increasing rounded times (some seeds give a short trial repeated times).
-    synth.write_bulk_campaign(root / "bulk", n_trials=N_TRIALS, n_points=N_POINTS, seed=1)
+    write_bulk_campaign(root / "bulk", n_trials=N_TRIALS, n_points=N_POINTS, seed=1)
     seeded = root / "seeded.duckdb"
     store.import_campaign(seeded, read_source(write_campaign(root / "small")))
     return root

@@ -14,7 +14,8 @@ from catalog.analysis import diagnostics
 from catalog.analysis.pipeline import Analysis, analyse
 from catalog.analysis.settings import Settings
 from catalog.core import arrhenius, hazard, transport
-from catalog.datasets import synth
+from catalog.datasets import known_truth, synth
+from catalog.datasets.demo import demo_campaign
 from catalog.ingest import sources
 
 TRANSPORT = {"transport-ea", "weisz-prater", "mears", "loading-slope"}
@@ -30,13 +31,13 @@ def _analysed(campaign_data, folder) -> Analysis:
 
 @pytest.fixture(scope="module")
 def demo(tmp_path_factory):
-    result = _analysed(synth.demo_campaign(), tmp_path_factory.mktemp("demo"))
+    result = _analysed(demo_campaign(), tmp_path_factory.mktemp("demo"))
     return result, diagnostics.evaluate(result, Settings())
 
 
 @pytest.fixture(scope="module")
 def clean(tmp_path_factory):
-    result = _analysed(synth.known_kinetics_campaign(), tmp_path_factory.mktemp("clean"))
+    result = _analysed(known_truth.known_kinetics_campaign(), tmp_path_factory.mktemp("clean"))
     return result, diagnostics.evaluate(result, Settings())
 
 

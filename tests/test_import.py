@@ -18,7 +18,7 @@ from support import CATALYSTS, TRIALS, replace_cell, snapshot, trace_rows, write
 
 from catalog import store
 from catalog.cli import main
-from catalog.datasets import synth
+from catalog.datasets import bulk
 from catalog.errors import DatabaseBusyError, ValidationError
 from catalog.ingest.sources import read_source
 from catalog.units import si_converter
@@ -310,7 +310,7 @@ def test_trace_problem_rows_are_file_lines_even_after_blank_lines(campaign, db):
 
 def test_points_are_stored_in_file_order(tmp_path):
     """Storage order is the file's row order (a join alone reorders rows once DuckDB runs it in parallel)."""
-    synth.write_bulk_campaign(tmp_path / "bulk", n_trials=3000, n_points=150, seed=1)
+    bulk.write_bulk_campaign(tmp_path / "bulk", n_trials=3000, n_points=150, seed=1)
     db = tmp_path / "x.duckdb"
     store.import_campaign(db, read_source(tmp_path / "bulk"))
     con = duckdb.connect(str(db), read_only=True)

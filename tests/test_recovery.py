@@ -14,7 +14,8 @@ import pytest
 from catalog import store
 from catalog.analysis import results
 from catalog.analysis.settings import Settings
-from catalog.datasets.synth import known_kinetics_campaign, write_campaign
+from catalog.datasets.known_truth import known_kinetics_campaign
+from catalog.datasets.synth import write_campaign
 from catalog.ingest import sources
 
 # Five set points with triplicates: with the generator's 4 % trial-to-trial scatter the standard error of Ea is

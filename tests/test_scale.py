@@ -16,7 +16,7 @@ from catalog.analysis import results
 from catalog.analysis.per_trial import trace_amounts
 from catalog.analysis.settings import FIT_VERSION, Settings
 from catalog.core import kinetics
-from catalog.datasets.synth import write_bulk_campaign
+from catalog.datasets.bulk import write_bulk_campaign
 from catalog.ingest import sources
 
 N_TRIALS = 60

@@ -10,7 +10,8 @@ import periodictable
 import pytest
 import scipy.constants
 
-from catalog.datasets import synth
+from catalog.datasets import bulk, known_truth, synth
+from catalog.datasets.demo import demo_campaign
 
 SAMPLE = Path(__file__).resolve().parents[1] / "sample_campaign"
 
@@ -31,12 +32,12 @@ V1_TRACES = "trial_id,time [s],value"
 
 @pytest.fixture(scope="module")
 def demo():
-    return synth.demo_campaign()
+    return demo_campaign()
 
 
 @pytest.fixture(scope="module")
 def exact():
-    return synth.known_kinetics_campaign(noise=0.0, n_points=60)
+    return known_truth.known_kinetics_campaign(noise=0.0, n_points=60)
 
 
 def _frames(c):
@@ -44,15 +45,15 @@ def _frames(c):
 
 
 def test_same_seed_gives_identical_frames(demo):
-    for a, b in zip(_frames(demo), _frames(synth.demo_campaign()), strict=True):
+    for a, b in zip(_frames(demo), _frames(demo_campaign()), strict=True):
         pd.testing.assert_frame_equal(a, b)
-    same = synth.known_kinetics_campaign(seed=3)
-    for a, b in zip(_frames(same), _frames(synth.known_kinetics_campaign(seed=3)), strict=True):
+    same = known_truth.known_kinetics_campaign(seed=3)
+    for a, b in zip(_frames(same), _frames(known_truth.known_kinetics_campaign(seed=3)), strict=True):
         pd.testing.assert_frame_equal(a, b)
 
 
 def test_other_seed_changes_the_noise(demo):
-    assert not demo.traces["value"].equals(synth.demo_campaign(seed=7).traces["value"])
+    assert not demo.traces["value"].equals(demo_campaign(seed=7).traces["value"])
 
 
 def test_demo_has_the_promised_shape(demo):
@@ -188,7 +189,7 @@ def test_committed_sample_matches_generator(tmp_path, demo):
 
 
 def test_bulk_writer_row_counts(tmp_path):
-    summary = synth.write_bulk_campaign(tmp_path, n_trials=23, n_points=7, seed=1, chunk=10)
+    summary = bulk.write_bulk_campaign(tmp_path, n_trials=23, n_points=7, seed=1, chunk=10)
     assert summary["trials"] == 23 and summary["trace_rows"] == 23 * 7
     traces = pd.read_csv(tmp_path / "traces.csv")
     trials = pd.read_csv(tmp_path / "trials.csv")
