@@ -93,7 +93,7 @@ def test_every_page_in_a_real_browser_draws_its_charts(tmp_path):
                 args=["--no-sandbox", "--disable-gpu", "--disable-background-networking", "--disable-component-update",
                       "--disable-sync", "--no-first-run"])
             try:
-                context = browser.new_context(viewport={"width": 1500, "height": 1100})  # a fresh profile
+                context = browser.new_context(viewport={"width": 1500, "height": 2400})  # a fresh profile
                 page = context.new_page()
                 for path, marker in PAGES.items():
                     name = path or "overview"
@@ -110,11 +110,19 @@ def test_every_page_in_a_real_browser_draws_its_charts(tmp_path):
                         box.press("Control+Enter")
                         page.get_by_text("Preview of the trace", exact=False).first.wait_for(timeout=60_000)
                         _settle(page)
+                        drawn["log_trial preview"] = _charts_have_marks(page, "log_trial preview")
+                        ratio = page.get_by_label("Product per limiting reactant", exact=False)
+                        ratio.fill("3")
+                        ratio.press("Enter")
+                        _settle(page)
+                        page.get_by_role("button", name="Check and save the trial").click()
+                        page.get_by_text("saved and analysed", exact=False).first.wait_for(timeout=120_000)
+                        _settle(page)
                     _clean(page, name)
                     drawn[name] = _charts_have_marks(page, name)
                     page.screenshot(path=str(shots / f"{name}.png"), full_page=True)
                     if name == "compare":
-                        tabs = page.locator("[data-testid='stTabs'] button[role='tab']")
+                        tabs = page.get_by_role("tab")
                         for i in range(tabs.count()):
                             label = tabs.nth(i).inner_text().strip()
                             tabs.nth(i).click()
@@ -132,5 +140,5 @@ def test_every_page_in_a_real_browser_draws_its_charts(tmp_path):
             server.kill()
             server.wait()
     # Pages that must have charts: a trial (raw signal, fit, residuals), the trace preview, every compare figure.
-    assert drawn["trials"] >= 3 and drawn["log_trial"] >= 1, drawn
+    assert drawn["trials"] >= 3 and drawn["log_trial preview"] >= 1 and drawn["log_trial"] >= 3, drawn
     assert all(drawn[k] >= 1 for k in drawn if k.startswith("compare: ") and "Flags" not in k), drawn

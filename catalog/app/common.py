@@ -233,4 +233,8 @@ def chart(figure, key: str | None = None) -> None:
     SVG (rather than the canvas Streamlit switches to for large data) keeps every mark a node of the page, which
     screen readers and the browser test can find.
     """
-    st.altair_chart(figure.properties(usermeta={"embedOptions": {"renderer": "svg"}}), width="stretch", key=key)
+    spec_height = getattr(figure, "height", None)
+    # The height is passed to Streamlit as well: left to the spec, layered charts were drawn squashed in the app.
+    height = int(spec_height) + 60 if isinstance(spec_height, int | float) else "content"
+    st.altair_chart(figure.properties(usermeta={"embedOptions": {"renderer": "svg"}}), width="stretch",
+                    height=height, key=key)

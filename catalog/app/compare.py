@@ -43,7 +43,7 @@ def overlay_chart(res: results.Results, points: pd.DataFrame, trial_ids: list[st
 
 def _rows_height(n: int) -> int:
     # Streamlit stretches a chart to the column width but would squash a step height: give each catalyst a row.
-    return charts.ROW_STEP * max(n, 1) + 40
+    return 34 * max(n, 1) + 40
 
 
 def _trace_tab(db: str, res: results.Results, chosen: list[str]) -> None:

@@ -66,71 +66,73 @@ def rank_table(ranked: pd.DataFrame, res: results.Results, metric: str, top_k: i
 
 
 def _controls():
-    T_ref = common.temperature_input("rank_T")
+    """The ranking choices in one row above the table, so the table gets the page's full width."""
+    a, b, c, d = st.columns([1.3, 1.6, 1.6, 0.8], gap="medium")
+    with a:
+        T_ref = common.temperature_input("rank_T")
     names = [*ranking.METRICS, "score"]
-    metric = st.selectbox("Rank by", names, key="rank_metric",
-                          format_func=lambda n: "weighted score of several figures" if n == "score"
-                          else common.figure_title(n, short=False))
+    metric = b.selectbox("Rank by", names, key="rank_metric",
+                         format_func=lambda n: "weighted score of several figures" if n == "score"
+                         else common.figure_title(n, short=False))
+    codes = list(diagnostics.FLAG_CODES)
+    exclude = c.multiselect("Leave out catalysts flagged", codes, key="rank_exclude",
+                            format_func=labels.flag_title, placeholder="none",
+                            help="Left-out catalysts stay in the table, unranked, with the reason")
+    demote = c.multiselect("Rank last when flagged", [c for c in codes if c not in exclude], key="rank_demote",
+                           format_func=labels.flag_title, placeholder="none")
     weights = None
     if metric == "score":
-        st.caption("Weights of the score (0 leaves a figure out)")
-        given = {n: st.number_input(common.figure_title(n), value=1.0 if n in ("tof", "enhancement") else 0.0,
-                                    min_value=0.0, step=0.5, key=f"rank_w_{n}", format="%g")
-                 for n in ranking.METRICS}
+        with b.container(border=True):
+            st.caption("Weights of the score (0 leaves a figure out)")
+            given = {n: st.number_input(common.figure_title(n), value=1.0 if n in ("tof", "enhancement") else 0.0,
+                                        min_value=0.0, step=0.5, key=f"rank_w_{n}", format="%g")
+                     for n in ranking.METRICS}
         weights = {k: v for k, v in given.items() if v > 0}
-    codes = list(diagnostics.FLAG_CODES)
-    exclude = st.multiselect("Leave out catalysts flagged", codes, key="rank_exclude",
-                             format_func=labels.flag_title, placeholder="none",
-                             help="Left-out catalysts stay in the table, unranked, with the reason")
-    demote = st.multiselect("Rank last when flagged", [c for c in codes if c not in exclude], key="rank_demote",
-                            format_func=labels.flag_title, placeholder="none")
-    return T_ref, metric, weights, exclude, demote
+    return T_ref, metric, weights, exclude, demote, d
 
 
 def render() -> None:
     db = common.database()
     st.title("Rank and export")
-    controls, table = st.columns([1.2, 3.4], gap="large")
-    with controls:
-        T_ref, metric, weights, exclude, demote = _controls()
-        res = common.get_results(db, T_ref)
-        n_cat = max(1, len(res.catalysts))
-        top_k = int(st.number_input("Shortlist size", min_value=1, max_value=n_cat, value=min(3, n_cat),
-                                    key="rank_top"))
-    with table:
-        if res.catalysts.empty:
-            st.info("No catalysed trials yet.")
-            return
-        if metric == "score" and not weights:
-            st.info("Give at least one figure a weight above 0.")
-            return
-        axes = None if metric == "score" else tradeoff.trade_off_axes(res.catalysts, metric)
-        front_words = ("Pareto set (weighted figures)" if axes is None else
-                       f"Pareto set ({labels.FIGURES[axes[0]][1]} vs {labels.FIGURES[axes[1]][1]})")
-        ranked = ranking.rank(res.catalysts, metric=metric, weights=weights or None, top_k=top_k,
-                              exclude_flags=tuple(exclude), demote_flags=tuple(demote), pareto_metrics=axes)
-        label = "weighted score" if metric == "score" else labels.FIGURES[metric][0]
-        st.subheader(f"Ranking on the {label} ({format_number(float(celsius(T_ref)), 'degC')})")
-        shown = rank_table(ranked, res, metric, top_k, front_words)
-        # Columns that say nothing for this ranking are dropped; the flags column never is.
-        shown = shown.drop(columns=[c for c in ("left out", "ranked last", "note") if not shown[c].any()])
-        listed = shown["rank"].fillna(top_k + 1).to_numpy() <= top_k
-        styled = shown.style.apply(lambda r: [SHORTLIST_TINT if listed[r.name] else ""] * len(r), axis=1)
-        st.dataframe(styled, hide_index=True, width="stretch", height=min(35 * (len(ranked) + 1) + 3, 600),
-                     column_config={"flags": st.column_config.TextColumn("flags", width="large"),
-                                    "note": st.column_config.TextColumn("note", width="large"),
-                                    "catalyst": st.column_config.TextColumn("catalyst", pinned=True)})
-        warned = tradeoff.transport_warnings(res.catalysts.loc[ranked.index[listed]])
-        for cid, why in warned.items():
-            st.warning(f"Shortlisted **{common.text(cid)}** carries a transport warning ({common.text(why)}): its "
-                       "rate may measure mass transfer rather than the catalyst.", icon=":material/warning:")
-        st.caption(f"Tinted rows: the shortlist (top {top_k}). Intervals are 95 %. Rank range: where the catalyst "
-                   f"lands in 95 % of random draws from every catalyst's uncertainty; P(top {top_k}): the share of "
-                   "draws in which it makes the shortlist. Pareto set: no other catalyst is better on both figures. "
-                   "Flags are always listed, also for left-out catalysts. Empty cell: not computable.")
-        if metric == "score":
-            st.markdown(score_explanation(weights))
-        downloads(db, res, ranked, metric, top_k)
+    T_ref, metric, weights, exclude, demote, size_slot = _controls()
+    res = common.get_results(db, T_ref)
+    n_cat = max(1, len(res.catalysts))
+    top_k = int(size_slot.number_input("Shortlist size", min_value=1, max_value=n_cat, value=min(3, n_cat),
+                                       key="rank_top"))
+    if res.catalysts.empty:
+        st.info("No catalysed trials yet.")
+        return
+    if metric == "score" and not weights:
+        st.info("Give at least one figure a weight above 0.")
+        return
+    axes = None if metric == "score" else tradeoff.trade_off_axes(res.catalysts, metric)
+    front_words = ("Pareto set (weighted figures)" if axes is None else
+                   f"Pareto set ({labels.FIGURES[axes[0]][1]} vs {labels.FIGURES[axes[1]][1]})")
+    ranked = ranking.rank(res.catalysts, metric=metric, weights=weights or None, top_k=top_k,
+                          exclude_flags=tuple(exclude), demote_flags=tuple(demote), pareto_metrics=axes)
+    label = "weighted score" if metric == "score" else labels.FIGURES[metric][0]
+    st.subheader(f"Ranking on the {label} ({format_number(float(celsius(T_ref)), 'degC')})")
+    shown = rank_table(ranked, res, metric, top_k, front_words)
+    # Columns that say nothing for this ranking are dropped; the flags column never is.
+    shown = shown.drop(columns=[c for c in ("left out", "ranked last", "note") if not shown[c].any()])
+    listed = shown["rank"].fillna(top_k + 1).to_numpy() <= top_k
+    styled = shown.style.apply(lambda r: [SHORTLIST_TINT if listed[r.name] else ""] * len(r), axis=1)
+    st.dataframe(styled, hide_index=True, width="stretch", height=min(35 * (len(ranked) + 1) + 3, 600),
+                 column_config={"rank": st.column_config.NumberColumn("rank", pinned=True, width="small"),
+                                "catalyst": st.column_config.TextColumn("catalyst", pinned=True),
+                                "flags": st.column_config.TextColumn("flags", width="large"),
+                                "note": st.column_config.TextColumn("note", width="large")})
+    warned = tradeoff.transport_warnings(res.catalysts.loc[ranked.index[listed]])
+    for cid, why in warned.items():
+        st.warning(f"Shortlisted **{common.text(cid)}** carries a transport warning ({common.text(why)}): its "
+                   "rate may measure mass transfer rather than the catalyst.", icon=":material/warning:")
+    st.caption(f"Tinted rows: the shortlist (top {top_k}). Intervals are 95 %. Rank range: where the catalyst "
+               f"lands in 95 % of random draws from every catalyst's uncertainty; P(top {top_k}): the share of "
+               "draws in which it makes the shortlist. Pareto set: no other catalyst is better on both figures. "
+               "Flags are always listed, also for left-out catalysts. Empty cell: not computable.")
+    if metric == "score":
+        st.markdown(score_explanation(weights))
+    downloads(db, res, ranked, metric, top_k)
     if res.catalysts["max_adiabatic_rise"].notna().any() or res.trials["pressure_rise_max"].notna().any():
         common.caution()
 

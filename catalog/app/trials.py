@@ -50,7 +50,7 @@ def trial_table(trials: pd.DataFrame) -> pd.DataFrame:
         f"{labels.ENHANCEMENT_SHORT} [×]": [common.blank(format_number(v)) for v in trials["enhancement"]],
         "R²": [common.blank(format_number(v, digits=4)) for v in trials["r2"]],
         "operator": trials["operator"].fillna("").astype(str).to_numpy(),
-        "started": trials["started_at"].to_numpy(),
+        "started": trials["started_at"].dt.strftime("%Y-%m-%d %H:%M").fillna("").to_numpy(),
         "flags": [labels.flags_text(f, with_codes=False) for f in trials["flags"]],
     })
 
