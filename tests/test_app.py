@@ -139,7 +139,7 @@ def test_logging_a_trial_adds_one_trial_and_shows_its_analysis(db):
     assert_clean(at)
     assert store.table_counts(db)["trials"] == before + 1
     assert any("saved and analysed" in s.value for s in at.success)
-    assert any(m.label.startswith("TOF") for m in at.metric)
+    assert any("| TOF [s⁻¹] |" in m.value for m in at.markdown)
 
 
 def test_logging_a_bad_trial_shows_located_problems_and_writes_nothing(db):

@@ -111,7 +111,7 @@ def test_every_page_in_a_real_browser_draws_its_charts(tmp_path):
                         page.get_by_text("Preview of the trace", exact=False).first.wait_for(timeout=60_000)
                         _settle(page)
                         drawn["log_trial preview"] = _charts_have_marks(page, "log_trial preview")
-                        ratio = page.get_by_label("Product per limiting reactant", exact=False)
+                        ratio = page.get_by_role("spinbutton", name="Product per limiting reactant")
                         ratio.fill("3")
                         ratio.press("Enter")
                         _settle(page)

@@ -71,11 +71,14 @@ def figures(row: pd.Series) -> list[tuple[str, str]]:
 def show_trial(db: str, res: results.Results, trial_id: str, compact: bool = False) -> None:
     """One trial: its figures, raw signal, product formed with the fitted rate law, residuals, flags, hazards."""
     row = res.trials.loc[trial_id]
-    # Two cards a row in a narrow column, three on a full page: longer rows cut the values off.
-    per_row = 2 if compact else 3
-    cols = st.columns(per_row)
-    for i, (label, value) in enumerate(figures(row)):
-        cols[i % per_row].metric(label, value, help=labels.ENHANCEMENT if "enhancement" in label else None)
+    if compact:
+        # A narrow column cuts a card's value off ("2.09440 ± …"): a two-column table wraps instead.
+        st.markdown("| figure | value |\n|---|---|\n" + "\n".join(
+            f"| {label} | {common.text(value)} |" for label, value in figures(row)))
+    else:
+        cols = st.columns(3)
+        for i, (label, value) in enumerate(figures(row)):
+            cols[i % 3].metric(label, value, help=labels.ENHANCEMENT if "enhancement" in label else None)
     if row["flags"]:
         st.warning("Flags on this trial: " + common.text(labels.flags_text(row["flags"])))
     points = common.traces(db, res, [trial_id])
