@@ -12,6 +12,9 @@ from streamlit.testing.v1 import AppTest
 
 from catalog import store
 from catalog.analysis import diagnostics
+from catalog.present import labels, tradeoff
+
+TRANSPORT_TITLES = [labels.flag_title(c) for c in tradeoff.TRANSPORT_CODES]
 
 APP = str(Path(__file__).resolve().parent.parent / "app.py")
 #: A burette trace (time [s], volume [mL]) of an invented first-order run, as a user would paste it.
@@ -324,3 +327,29 @@ def test_reuploading_an_imported_campaign_says_so_in_the_preview(db, tmp_path):
     at.file_uploader(key="import_files").set_value(files).run()
     assert not at.exception
     assert any("already imported" in i.value for i in at.info)
+
+
+def test_a_transport_flagged_catalyst_is_never_shown_optimal_without_its_flag(db):
+    at = open_page("rank")
+    table = at.dataframe[0].value.set_index("catalyst")
+    front = next(c for c in table.columns if c.startswith("Pareto set"))
+    for _, row in table.iterrows():
+        if row[front].startswith("yes") and any(t in row["flags"] for t in TRANSPORT_TITLES):
+            assert "transport warning" in row[front]
+
+
+def test_rank_table_marks_a_transport_limited_catalyst_on_the_front(db):
+    from catalog.analysis import ranking, results
+    from catalog.analysis.settings import Settings
+    from catalog.app import rank as rank_page
+
+    open_page("overview")  # seeds the demo
+    res = results.get_results(db, Settings())
+    # Against Ea, the low-Ea (transport-limited) demo catalyst is on the front: exactly the case to mark.
+    ranked = ranking.rank(res.catalysts, metric="tof", pareto_metrics=("tof", "ea"))
+    table = rank_page.rank_table(ranked, res, "tof", 3, "Pareto").set_index("catalyst")
+    warned = tradeoff.transport_warnings(res.catalysts)
+    on_front = [c for c in warned if ranked.loc[c, "pareto"]]
+    assert on_front, "the demo must hold a transport-flagged catalyst on this front"
+    for cid in on_front:
+        assert table.loc[cid, "Pareto"] == "yes ⚠ transport warning"

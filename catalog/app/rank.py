@@ -47,6 +47,7 @@ def rank_table(ranked: pd.DataFrame, res: results.Results, metric: str, top_k: i
     ea = from_si(cats[["ea", "ea_low", "ea_high"]].to_numpy(float), "kJ/mol")
     enh = cats[["enhancement_ref", "enhancement_ref_low", "enhancement_ref_high"]].to_numpy(float)
     yes = {True: "yes", False: ""}
+    warned = tradeoff.transport_warnings(cats)
     return pd.DataFrame({
         "rank": pd.array(ranked["rank"].round(), dtype="Int64"),
         "catalyst": ranked.index.astype(str),
@@ -60,7 +61,9 @@ def rank_table(ranked: pd.DataFrame, res: results.Results, metric: str, top_k: i
         "flags": [labels.flags_text(f, with_codes=False) for f in cats["flags"].fillna("")],
         "left out": ranked["excluded"].astype(bool).map(yes).to_numpy(),
         "ranked last": ranked["demoted"].astype(bool).map(yes).to_numpy(),
-        front_words: ranked["pareto"].astype(bool).map(yes).to_numpy(),
+        # A transport-limited catalyst can sit on the front only because mass transfer flattened its figures.
+        front_words: ["yes ⚠ transport warning" if on and cid in warned else yes[bool(on)]
+                      for cid, on in zip(ranked.index.astype(str), ranked["pareto"], strict=True)],
         "note": ranked["note"].fillna("").astype(str).to_numpy(),
     })
 
