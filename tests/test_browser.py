@@ -121,6 +121,14 @@ def test_every_page_in_a_real_browser_draws_its_charts(tmp_path):
                     _clean(page, name)
                     drawn[name] = _charts_have_marks(page, name)
                     page.screenshot(path=str(shots / f"{name}.png"), full_page=True)
+                    if name == "import_page":
+                        # The demo's own files again: the preview must say they are already imported.
+                        page.locator("input[type='file']").set_input_files(
+                            [str(ROOT / "sample_campaign" / f) for f in ("catalysts.csv", "trials.csv", "traces.csv")])
+                        page.get_by_text("already imported", exact=False).first.wait_for(timeout=60_000)
+                        _settle(page)
+                        _clean(page, "import preview")
+                        page.screenshot(path=str(shots / "import_preview.png"), full_page=True)
                     if name == "compare":
                         tabs = page.get_by_role("tab")
                         for i in range(tabs.count()):

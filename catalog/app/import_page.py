@@ -14,20 +14,21 @@ from catalog.ingest import sources, upload, validate
 from catalog.ingest.validate import trace_layout
 
 
-def _already_imported(db: str, source: sources.CampaignSource) -> str | None:
-    """A sentence when these exact files, or some of these trials, are already in the database."""
+def _already_imported(db: str, source: sources.CampaignSource) -> tuple[str | None, bool]:
+    """A sentence when these exact files, or some of these trials, are already in the database, and whether the
+    files are identical to an earlier import (then there is nothing to write)."""
     imports = store.list_imports(db)
     same = imports[imports["content_hash"] == source.content_hash]
     if not same.empty:
         first = same.iloc[0]
         return (f"These exact files were already imported as import #{int(first['import_id'])} on "
-                f"{first['imported_at']:%Y-%m-%d %H:%M}; writing them again would add nothing.")
+                f"{first['imported_at']:%Y-%m-%d %H:%M}; there is nothing new to write."), True
     ids = set(source.trials.frame.get("trial_id", []))
     stored = ids & set(store.list_trials(db)["trial_id"])
     if stored:
         return (f"{len(stored)} of these {len(ids)} trials are already stored; identical ones will be skipped, "
-                "different ones refused (record a correction, or give them new ids).")
-    return None
+                "different ones refused (record a correction, or give them new ids)."), False
+    return None, False
 
 
 def _preview(db: str, source: sources.CampaignSource, who: str) -> None:
@@ -41,7 +42,7 @@ def _preview(db: str, source: sources.CampaignSource, who: str) -> None:
     cols[0].metric("Catalysts", len(source.catalysts.frame))
     cols[1].metric("Trials", len(source.trials.frame))
     cols[2].metric("Trace points", f"{n_points:,}")
-    again = _already_imported(db, source)
+    again, identical = _already_imported(db, source)
     if again:
         st.info(common.text(again), icon=":material/content_copy:")
     for label, frame in (("catalysts", source.catalysts.frame), ("trials", source.trials.frame),
@@ -66,6 +67,8 @@ def _preview(db: str, source: sources.CampaignSource, who: str) -> None:
     if found:
         common.show_problems(found)
         st.caption("Fix these in the files and upload them again.")
+        return
+    if identical:
         return
     st.success("The catalysts and trials tables pass every check; the trace points are checked as they are "
                "written, all or nothing.")
