@@ -100,8 +100,9 @@ def test_every_page_in_a_real_browser_draws_its_charts(tmp_path):
                     page.goto(f"{url}/{path}", wait_until="domcontentloaded")
                     page.get_by_text(marker, exact=False).first.wait_for(timeout=120_000)
                     _settle(page)
-                    assert page.get_by_text("Demo data", exact=False).count() >= 1
-                    if name == "rank":
+                    demo = "CATALOG_BROWSER_DB" not in os.environ  # another database (e.g. a large one) has no demo
+                    assert not demo or page.get_by_text("Demo data", exact=False).count() >= 1
+                    if name == "rank" and demo:
                         # The table is drawn on a canvas; its cells are mirrored into an accessible grid as text.
                         page.get_by_text(DEMO_CATALYST, exact=True).first.wait_for(state="attached", timeout=60_000)
                     if name == "log_trial":
@@ -121,7 +122,7 @@ def test_every_page_in_a_real_browser_draws_its_charts(tmp_path):
                     _clean(page, name)
                     drawn[name] = _charts_have_marks(page, name)
                     page.screenshot(path=str(shots / f"{name}.png"), full_page=True)
-                    if name == "import_page":
+                    if name == "import_page" and demo:
                         # The demo's own files again: the preview must say they are already imported.
                         page.locator("input[type='file']").set_input_files(
                             [str(ROOT / "sample_campaign" / f) for f in ("catalysts.csv", "trials.csv", "traces.csv")])
