@@ -68,6 +68,7 @@ def _clean(page, where: str) -> None:
 
 
 @pytest.mark.browser
+@pytest.mark.slow
 def test_every_page_in_a_real_browser_draws_its_charts(tmp_path):
     if not CHROMIUM.exists():
         if os.environ.get("CATALOG_REQUIRE_BROWSER") == "1":
