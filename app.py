@@ -1,5 +1,5 @@
-"""Streamlit entry point: `streamlit run app.py` (the workbench lives in catalog.webapp)."""
+"""Streamlit entry point: `streamlit run app.py` (the workbench lives in catalog.app)."""
 
-from catalog.webapp import run
+from catalog.app.main import run
 
 run()

@@ -48,11 +48,12 @@ def stream_member(
                     raise CatalogError(f"{label}: '{name}' unpacks to more than the {_mb(budget)} allowed; refused "
                                        "before parsing (import a campaign this large as CSV files)")
                 sink(block)
-    except RuntimeError as exc:  # zipfile's signal for an encrypted member
-        raise CatalogError(f"{label}: '{name}' is encrypted; save it without a password") from exc
+    # NotImplementedError is a RuntimeError: it must be caught first.
     except NotImplementedError as exc:
         raise CatalogError(f"{label}: '{name}' uses a compression method that cannot be read here ({exc}); "
                            "re-save it with ordinary (deflate) compression") from exc
+    except RuntimeError as exc:  # zipfile's signal for an encrypted member
+        raise CatalogError(f"{label}: '{name}' is encrypted; save it without a password") from exc
     except (zipfile.BadZipFile, EOFError, OSError, ValueError) as exc:
         raise CatalogError(f"{label}: '{name}' is damaged ({exc})") from exc
     return read
