@@ -12,7 +12,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import optimize, stats
 from scipy.constants import R, h
 from scipy.constants import k as k_B
 
@@ -164,10 +163,14 @@ def fit_line(x, y, y_se=None, scatter: str = "paule-mandel"):
         # every point, not a multiple of each point's own error: solve sum w_i r_i^2 = nu with w_i = 1/(se_i^2 +
         # tau^2) (Paule and Mandel 1982). Scaling the covariance instead would let the few most precise points
         # carry the fit and give intervals that cover too rarely.
+        from scipy import optimize  # deferred: ~0.3 s to import; a warm ranking reads Ea from the cache
+
         upper = float(np.var(y) * 10 + var.max())
         tau2 = optimize.brentq(lambda t2: _weighted_line(x, y, var + t2)[0] - dof, 0.0, upper, xtol=1e-14 * upper)
     chi2, intercept, slope, sw, x_bar, y_bar, sxx, w = _weighted_line(x, y, var + tau2)
     tss = float((w * (y - y_bar) ** 2).sum())
+    from scipy import stats  # deferred: ~0.5 s to import; a warm ranking reads Ea from the cache
+
     if weighted:
         scale = max(1.0, chi2 / dof) if scatter == "birge" and dof > 0 else 1.0
         coverage = stats.t.ppf(0.5 + CONFIDENCE / 2, dof) if dof > 0 else Z95
@@ -312,6 +315,8 @@ def _curvature_p(x, y, w, chi2_line, n_temperatures):
     if chi2_quad <= 0.0:
         return 0.0 if chi2_line > 0.0 else np.nan
     f = (chi2_line - chi2_quad) / (chi2_quad / (n - 3))
+    from scipy import stats  # deferred, as in fit_line
+
     return float(stats.f.sf(max(f, 0.0), 1, n - 3))
 
 
