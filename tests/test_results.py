@@ -6,8 +6,6 @@ Real DuckDB files in tmp_path holding the demo campaign (invented data).
 from __future__ import annotations
 
 import shutil
-import subprocess
-import sys
 
 import pandas as pd
 import pytest
@@ -43,16 +41,3 @@ def test_cold_results_from_memory_equal_the_cached_read(fresh_db, tmp_path):
     assert cold.blank.keys() == warm.blank.keys()
     assert all(cold.blank[k] == warm.blank[k] for k in cold.blank)
 
-
-def test_a_warm_read_does_not_load_the_fitting_code(demo_db, tmp_path):
-    # The point of the deferred imports: a cached ranking starts without scipy's optimisers and statistics.
-    db = tmp_path / "copy.duckdb"
-    shutil.copy(demo_db, db)
-    results.get_results(db, Settings())
-    code = ("import sys; from catalog.analysis import results, ranking; "
-            "from catalog.analysis.settings import Settings; "
-            f"r = results.get_results({str(db)!r}, Settings()); ranking.rank(r.catalysts); assert not r.computed; "
-            "print(sorted(m for m in ('scipy.stats', 'scipy.optimize', 'altair', 'openpyxl', 'streamlit') "
-            "if m in sys.modules))")
-    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
-    assert out.stdout.strip() == "[]"
