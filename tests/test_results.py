@@ -14,7 +14,7 @@ from catalog import store
 from catalog.analysis import results
 from catalog.analysis.settings import Settings
 from catalog.datasets.synth import demo_campaign, write_campaign
-from catalog.ingest import campaign
+from catalog.ingest import sources
 
 
 @pytest.fixture(scope="module")
@@ -23,7 +23,7 @@ def fresh_db(tmp_path_factory):
     folder = tmp_path_factory.mktemp("fresh")
     write_campaign(demo_campaign(), folder)
     db = folder / "fresh.duckdb"
-    store.import_campaign(db, campaign.read_source(folder))
+    store.import_campaign(db, sources.read_source(folder))
     return db
 
 
