@@ -35,6 +35,7 @@ import subprocess
 import sys
 import tempfile
 import time
+from importlib.metadata import version
 from pathlib import Path
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -139,8 +140,16 @@ def phase_floor(work: Path) -> dict:
     return {"seconds": time.perf_counter() - start, "fitted": int(np.isfinite(fits["r0"]).sum())}
 
 
-PHASES = {"read_csv": phase_read_csv, "import": phase_import, "analysis": phase_analysis, "warm": phase_warm,
-          "floor": phase_floor}
+def phase_make(work: Path) -> dict:
+    from catalog.datasets import synth
+
+    meta = json.loads((work / "meta.json").read_text())
+    made = synth.write_bulk_campaign(work / CAMPAIGN, meta["trials"], meta["points"], seed=meta["seed"])
+    return {"trials": made["trials"], "blank_trials": made["blank_trials"]}
+
+
+PHASES = {"make": phase_make, "read_csv": phase_read_csv, "import": phase_import, "analysis": phase_analysis,
+          "warm": phase_warm, "floor": phase_floor}
 
 
 def _child(phase: str, work: Path) -> None:
@@ -161,12 +170,12 @@ def phase(name: str, work: Path) -> dict:
 # --------------------------------------------------------------------------------------------------- runs
 
 
-def make_campaign(folder: Path, trials: int, points: int, seed: int) -> dict:
-    from catalog.datasets import synth
-
-    made = synth.write_bulk_campaign(folder, trials, points, seed=seed)
-    (folder.parent / "meta.json").write_text(json.dumps({"trials": trials, "points": points}))
-    return made
+def make_campaign(work: Path, trials: int, points: int, seed: int) -> dict:
+    """Write the campaign in a child process: the parent stays small, because a child's peak resident memory
+    (``ru_maxrss``) starts from its parent's size at the fork."""
+    work.mkdir(parents=True, exist_ok=True)
+    (work / "meta.json").write_text(json.dumps({"trials": trials, "points": points, "seed": seed}))
+    return phase("make", work)
 
 
 def whole_processes(work: Path) -> dict:
@@ -207,7 +216,7 @@ def scaling_table(work: Path, sizes: list[int], points: int, seed: int, known: d
             got = known[n]
         else:
             folder = work / f"scale-{n}"
-            make_campaign(folder / CAMPAIGN, n, points, seed)
+            make_campaign(folder, n, points, seed)
             got = whole_processes(folder)
             shutil.rmtree(folder, ignore_errors=True)
         if "error" in got["import"] or "error" in got["rank"]:
@@ -250,16 +259,15 @@ def main(argv: list[str] | None = None) -> int:
     work.mkdir(parents=True, exist_ok=True)
     n = args.trials
     try:
-        import duckdb
-        import numpy
-        import pandas
-
         print(f"catalog benchmark: {n:,} trials x {args.points} points = {n * args.points:,} trace points; "
               f"{os.cpu_count()} CPU cores, load average {os.getloadavg()[0]:.1f} at start; Python "
-              f"{sys.version.split()[0]}, DuckDB {duckdb.__version__}, pandas {pandas.__version__}, numpy "
-              f"{numpy.__version__}")
+              f"{sys.version.split()[0]}, DuckDB {version('duckdb')}, pandas {version('pandas')}, numpy "
+              f"{version('numpy')}")
         start = time.perf_counter()
-        made = make_campaign(work / CAMPAIGN, n, args.points, args.seed)
+        made = make_campaign(work, n, args.points, args.seed)
+        if "error" in made:
+            print(f"could not write the campaign: {made['error']}")
+            return 1
         size = (work / CAMPAIGN / "traces.csv").stat().st_size
         print(f"synthetic campaign: {time.perf_counter() - start:.1f} s, {made['trials']:,} trials "
               f"({made['blank_trials']:,} blanks), trace file {size / 2**20:,.0f} MiB in {work}")
@@ -268,7 +276,7 @@ def main(argv: list[str] | None = None) -> int:
         raw = run(["-c", RAW_READ, str(work / "raw.duckdb"), str(work / CAMPAIGN / "traces.csv")])
         script = ({"error": "skipped"} if args.skip_baseline
                   else run([str(HERE / "curve_fit_per_trial.py"), str(work / CAMPAIGN), "--out", str(work / "r.csv")]))
-        phases = {name: phase(name, work) for name in PHASES}
+        phases = {name: phase(name, work) for name in PHASES if name != "make"}
         load_end = os.getloadavg()[0]
 
         print(f"\nwhole processes{'':<35} {'wall s':>8} {'trials/s':>10} {'peak MiB':>9}")
