@@ -21,7 +21,7 @@ from catalog.core import hazard
 from catalog.errors import CatalogError
 from catalog.ingest.columns import CATALYST_COLUMNS, TRIAL_COLUMNS
 from catalog.ingest.sources import read_source
-from catalog.present import exports, labels, report, screen, tradeoff
+from catalog.present import labels, screen, tradeoff
 from catalog.present.numbers import format_interval
 from catalog.units import UnitProblem, celsius, from_si, parse_temperature
 
@@ -209,6 +209,8 @@ def _weights(text: str | None) -> dict[str, float] | None:
 
 
 def _ranked(args: argparse.Namespace):
+    from catalog.present import exports  # deferred: only rank and report format a shortlist
+
     # Every option is checked before the analysis runs, so a typo costs nothing.
     settings = _settings(args)
     if args.metric not in (*ranking.METRICS, "score"):
@@ -233,6 +235,8 @@ def _ranked(args: argparse.Namespace):
 
 
 def cmd_rank(args: argparse.Namespace) -> int:
+    from catalog.present import exports  # deferred: only rank and report format a shortlist
+
     found, ranked = _ranked(args)
     table = exports.shortlist_table(ranked, found, args.top, metric=args.metric, currency=args.currency)
     t_ref_c = float(celsius(found.settings.reference_temperature))
@@ -270,6 +274,8 @@ def cmd_analyse(args: argparse.Namespace) -> int:
 
 
 def cmd_report(args: argparse.Namespace) -> int:
+    from catalog.present import report  # deferred: the report brings altair and vl-convert (~0.5 s of imports)
+
     found, ranked = _ranked(args)
     path = report.write_report(args.db, args.out, found.settings, ranked=ranked, top_k=args.top, metric=args.metric,
                                currency=args.currency)

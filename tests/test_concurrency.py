@@ -12,11 +12,15 @@ import textwrap
 import time
 
 import duckdb
+import pytest
 from support import write_campaign
 
 from catalog import store
 from catalog.datasets import bulk
 from catalog.ingest.sources import read_source
+
+# Every test here runs real subprocesses that hold locks for seconds.
+pytestmark = pytest.mark.slow
 
 
 def _holder(db, seconds: float | None) -> subprocess.Popen:

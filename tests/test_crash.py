@@ -83,6 +83,7 @@ def _clean_duration(bulk) -> float:
     return time.monotonic() - began
 
 
+@pytest.mark.slow
 def test_kill_at_spread_moments(bulk):
     duration = _clean_duration(bulk)
     for i, fraction in enumerate((0.1, 0.3, 0.5, 0.65, 0.8, 0.9, 0.97)):
@@ -98,6 +99,7 @@ def test_kill_at_spread_moments(bulk):
         _then_import_again(bulk, db, _check_all_or_nothing(db, before))
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("delay", [0.0, 0.02, 0.05, 0.1, 0.2])
 def test_kill_during_the_final_write(bulk, delay):
     db = bulk / f"write{delay}.duckdb"

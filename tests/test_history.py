@@ -197,6 +197,7 @@ def test_hostile_text_round_trips_through_import_and_correct(tmp_path, text):
 @settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
 @given(text=st.text(st.characters(blacklist_categories=("Cs", "Cc")), min_size=1, max_size=200)
        .filter(lambda s: s.strip() == s and s.strip() != ""))
+@pytest.mark.slow
 def test_any_printable_note_is_stored_verbatim(db, text):
     """Any text without control characters or surrounding spaces comes back exactly (import cells are trimmed)."""
     if _value(db, "trials", "trial_id", "R3", "notes") != text:  # hypothesis may repeat a value; that is refused

@@ -1,6 +1,6 @@
 """End-to-end recovery: a campaign generated from known kinetics goes through import, analysis and ranking.
 
-The synthetic campaign (catalog.datasets.synth.known_kinetics_campaign) is invented data with known truth; recovering that
+The synthetic campaign (catalog.datasets.known_truth.known_kinetics_campaign) is invented data with known truth; recovering that
 truth is the check (the analysis code never sees the truth). Tolerances are the acceptance targets of the analysis
 issue: TOF at the reference temperature within 5 %, Ea within 2 kJ/mol, enhancement within 10 %, true order.
 """

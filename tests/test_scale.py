@@ -1,6 +1,6 @@
 """Campaign-scale path end to end: batch fits agree with the per-trial reference, and re-analysis is incremental.
 
-Invented data (catalog.datasets.synth.write_bulk_campaign, the benchmark's generator at a small size); real DuckDB files in
+Invented data (catalog.datasets.bulk.write_bulk_campaign, the benchmark's generator at a small size); real DuckDB files in
 tmp_path. No timings here: those live in benchmarks/bench.py.
 """
 

@@ -3,7 +3,10 @@
 A result set is keyed by the analysis settings, the code version and a fingerprint of the data; when neither the
 data nor the settings changed it is read back from the store (a query, not a recomputation). Otherwise only trials
 without a cached kinetic fit are fitted, the cheap per-trial and per-catalyst figures are recomputed, the
-diagnostics run, and the run is stored.
+diagnostics run, and the run is stored; the figures just computed are returned as they are, not read back.
+
+The analysis modules (and the scipy fits under them) are imported only on that cold path, so a command that finds
+its results cached starts without them.
 """
 
 from __future__ import annotations
@@ -11,20 +14,14 @@ from __future__ import annotations
 import hashlib
 import json
 import os
+from collections.abc import Callable
 from dataclasses import asdict, dataclass
 
 import numpy as np
 import pandas as pd
 
 from catalog import store
-from catalog.analysis import diagnostics
-from catalog.analysis.per_trial import fit_all
-from catalog.analysis.pipeline import analyse
-from catalog.analysis.settings import (
-    FIT_VERSION,
-    TRIAL_FIT_COLUMNS,
-    Settings,
-)
+from catalog.analysis.settings import FIT_VERSION, TRIAL_FIT_COLUMNS, Settings
 
 
 @dataclass(frozen=True)
@@ -57,6 +54,10 @@ class Results:
     cached: bool = True
 
 
+#: Blank-model figures kept in a run, as ``blank_<name>`` columns of the store's run table.
+_BLANK_FIELDS = ("ea", "ea_low", "ea_high", "ln_a", "t_min", "t_max")
+
+
 #: Trace points fitted per block: bounds the memory of a cold analysis by points, whatever the number of trials.
 FIT_BLOCK_POINTS = 2_000_000
 
@@ -66,59 +67,76 @@ def run_key(settings: Settings, stamp: str) -> str:
     return hashlib.sha256(f"{settings.key()}|{stamp}".encode()).hexdigest()[:20]
 
 
-def get_results(db: str | os.PathLike | None, settings: Settings, progress=None) -> Results:
+def get_results(db: str | os.PathLike | None, settings: Settings,
+                progress: Callable[[str], None] | None = None) -> Results:
     """Results for the campaign in ``db`` under ``settings``, from the cache when it is current."""
     say = progress or (lambda message: None)
     stamp = store.data_stamp(db)
     key = run_key(settings, stamp)
     cached = store.load_run(db, key)
-    computed = cached is None
-    stored = True
-    if computed:
-        say("loading trials")
-        catalysts, trials = store.load_records(db)
-        # Missing inputs give NaN figures by design (empty cells, never made-up numbers); numpy's warnings about
-        # them are noise to a user.
-        with np.errstate(all="ignore"):
-            fits = _fit_missing(db, trials.set_index("trial_id"), store.load_fits(db, FIT_VERSION), say)
-            no_points = pd.DataFrame({"trial_id": pd.Series(dtype=object), "t": [], "value": []})
-            result = analyse(catalysts, trials, no_points, settings, fits=fits)
-            say("running diagnostics")
-            flags = diagnostics.evaluate(result, settings)
-        trial_table = _with_codes(result.trials, flags, "trial")
-        catalyst_table = _with_codes(result.catalysts, flags, "catalyst")
-        blank = result.blank
-        summary = {} if blank is None else {
-            "ea": blank.ea, "ea_low": blank.ea_low, "ea_high": blank.ea_high, "ln_a": blank.ln_a,
-            "t_min": blank.t_min, "t_max": blank.t_max, "n_points": blank.n_points}
-        say("storing results")
-        fit_columns = list(TRIAL_FIT_COLUMNS)
-        stored = store.save_run(db, key, json.dumps(asdict(settings), sort_keys=True), stamp,
-                                result.trials[fit_columns], FIT_VERSION, summary, trial_table, catalyst_table, flags)
-        if stored:
-            cached = store.load_run(db, key)
-        else:
-            say("the database is read-only: figures computed for this command, not cached")
-            cached = store.run_frames(summary, trial_table, catalyst_table, flags)
-    run = cached["run"]
+    if cached is None:
+        return _compute(db, settings, key, stamp, say)
+    return _results(cached, settings, key, stamp, computed=False, stored=True)
+
+
+def _results(frames: dict, settings: Settings, key: str, stamp: str, computed: bool, stored: bool) -> Results:
+    """Results from a run in the layout of :func:`catalog.store.load_run`, whether read back or built in memory."""
+    run = frames["run"]
     blank = {} if pd.isna(run.get("blank_ea")) else {
-        k: run[f"blank_{k}"] for k in ("ea", "ea_low", "ea_high", "ln_a", "t_min", "t_max")} | {"n": run["blank_n"]}
-    trials = cached["trial_results"].set_index("trial_id")
-    catalysts = cached["catalyst_results"].set_index("catalyst_id").sort_index()
-    return Results(trials, catalysts, cached["flags"], blank, settings, key, stamp, computed, stored)
+        k: run[f"blank_{k}"] for k in _BLANK_FIELDS} | {"n": run["blank_n"]}
+    trials = frames["trial_results"].set_index("trial_id").sort_index()
+    catalysts = frames["catalyst_results"].set_index("catalyst_id").sort_index()
+    return Results(trials, catalysts, frames["flags"], blank, settings, key, stamp, computed, stored)
 
 
-def _fit_missing(db, trials: pd.DataFrame, cached: pd.DataFrame, say) -> pd.DataFrame:
-    """Kinetic fits for every trial: cached ones reused, the rest fitted a block of trials at a time."""
+def _compute(db, settings: Settings, key: str, stamp: str, say: Callable[[str], None]) -> Results:
+    """Fit what is not cached, derive every figure, run the diagnostics, store the run and return it."""
+    # Deferred: the pipeline pulls in scipy's optimisers (~0.3 s of imports), needed only here.
+    from catalog.analysis import diagnostics
+    from catalog.analysis.pipeline import analyse
+
+    say("loading trials")
+    catalysts, trials = store.load_records(db)
+    # Missing inputs give NaN figures by design (empty cells, never made-up numbers); numpy's warnings about
+    # them are noise to a user.
+    with np.errstate(all="ignore"):
+        fits = _fit_missing(db, trials.set_index("trial_id"), store.load_fits(db, FIT_VERSION), say)
+        no_points = pd.DataFrame({"trial_id": pd.Series(dtype=object), "t": [], "value": []})
+        result = analyse(catalysts, trials, no_points, settings, fits=fits)
+        say("running diagnostics")
+        flags = diagnostics.evaluate(result, settings)
+    trial_table = _with_codes(result.trials, flags, "trial")
+    catalyst_table = _with_codes(result.catalysts, flags, "catalyst")
+    fit = result.blank
+    summary = {} if fit is None else {k: getattr(fit, k) for k in _BLANK_FIELDS} | {"n_points": fit.n_points}
+    say("storing results")
+    stored = store.save_run(db, key, json.dumps(asdict(settings), sort_keys=True), stamp,
+                            result.trials[list(TRIAL_FIT_COLUMNS)], FIT_VERSION, summary, trial_table, catalyst_table,
+                            flags)
+    if not stored:
+        say("the database is read-only: figures computed for this command, not cached")
+    # The figures just computed are returned in the layout a cached read has; reading them back from the store
+    # would only cost a second pass over every result row.
+    return _results(store.run_frames(summary, trial_table, catalyst_table, flags), settings, key, stamp,
+                    computed=True, stored=stored)
+
+
+def _fit_missing(db, trials: pd.DataFrame, cached: pd.DataFrame, say: Callable[[str], None]) -> pd.DataFrame:
+    """Kinetic fits for every trial: cached ones reused, the rest fitted a block of trace points at a time."""
+    from catalog.analysis.per_trial import fit_all  # deferred with the pipeline (see _compute)
+
     todo = trials.index.difference(cached.index)
     say(f"fitting {len(todo)} trace(s), reusing {len(trials) - len(todo)} cached fit(s)")
     fresh, done = [], 0
     blocks = store.point_blocks(db, todo, FIT_BLOCK_POINTS)
     for block in blocks:
-        fresh.append(fit_all(trials.loc[block], store.load_points(db, block)))
+        # Separate messages for the read and the fits: on a large campaign the user (and the benchmark) sees which.
+        part = f" of trials {done + 1}-{done + len(block)} of {len(todo)}" if len(blocks) > 1 else ""
+        say(f"  reading the trace points{part}")
+        points = store.load_points(db, block)
+        say(f"  fitting the rate laws{part}")
+        fresh.append(fit_all(trials.loc[block], points))
         done += len(block)
-        if len(blocks) > 1:
-            say(f"  fitted {done} of {len(todo)}")
     return pd.concat([cached.loc[cached.index.intersection(trials.index)], *fresh])
 
 

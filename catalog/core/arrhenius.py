@@ -12,11 +12,10 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import optimize, stats
 from scipy.constants import R, h
 from scipy.constants import k as k_B
 
-from catalog.core.stats import CONFIDENCE, Z95
+from catalog.core.stats import CONFIDENCE, Z95, t95
 from catalog.errors import CatalogError
 
 __all__ = [
@@ -164,17 +163,19 @@ def fit_line(x, y, y_se=None, scatter: str = "paule-mandel"):
         # every point, not a multiple of each point's own error: solve sum w_i r_i^2 = nu with w_i = 1/(se_i^2 +
         # tau^2) (Paule and Mandel 1982). Scaling the covariance instead would let the few most precise points
         # carry the fit and give intervals that cover too rarely.
+        from scipy import optimize  # deferred: ~0.3 s to import; a warm ranking reads Ea from the cache
+
         upper = float(np.var(y) * 10 + var.max())
         tau2 = optimize.brentq(lambda t2: _weighted_line(x, y, var + t2)[0] - dof, 0.0, upper, xtol=1e-14 * upper)
     chi2, intercept, slope, sw, x_bar, y_bar, sxx, w = _weighted_line(x, y, var + tau2)
     tss = float((w * (y - y_bar) ** 2).sum())
     if weighted:
         scale = max(1.0, chi2 / dof) if scatter == "birge" and dof > 0 else 1.0
-        coverage = stats.t.ppf(0.5 + CONFIDENCE / 2, dof) if dof > 0 else Z95
+        coverage = t95(dof) if dof > 0 else Z95
     else:
         birge = np.nan
         scale = chi2 / dof if dof > 0 else np.nan
-        coverage = stats.t.ppf(0.5 + CONFIDENCE / 2, dof) if dof > 0 else np.nan
+        coverage = t95(dof) if dof > 0 else np.nan
     if weighted and tau2 > 0:
         # The extra variance is itself estimated from nu residuals, and the Paule-Mandel covariance ignores that
         # uncertainty, so with few points it covers too rarely. Never report a slope more certain than the
@@ -312,7 +313,11 @@ def _curvature_p(x, y, w, chi2_line, n_temperatures):
     if chi2_quad <= 0.0:
         return 0.0 if chi2_line > 0.0 else np.nan
     f = (chi2_line - chi2_quad) / (chi2_quad / (n - 3))
-    return float(stats.f.sf(max(f, 0.0), 1, n - 3))
+    # F survival function from scipy.special (what scipy.stats.f.sf evaluates); deferred, and without scipy.stats,
+    # whose import costs ~0.5 s.
+    from scipy import special
+
+    return float(special.fdtrc(1, n - 3, max(f, 0.0)))
 
 
 def fit_arrhenius(T, k, k_se=None, scatter: str = "paule-mandel"):

@@ -13,10 +13,6 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
-from openpyxl import Workbook
-from openpyxl.cell.cell import ILLEGAL_CHARACTERS_RE
-from openpyxl.styles import Font
-from openpyxl.utils import get_column_letter
 
 from catalog import __version__
 from catalog.analysis import diagnostics, ranking
@@ -170,6 +166,8 @@ def _cell(value):
     if value is None or (not isinstance(value, str) and pd.isna(value)):
         return None
     if isinstance(value, str):
+        from openpyxl.cell.cell import ILLEGAL_CHARACTERS_RE  # deferred with Workbook in _write_xlsx
+
         return ILLEGAL_CHARACTERS_RE.sub("\ufffd", value)
     return value.item() if isinstance(value, np.generic) else value
 
@@ -179,6 +177,9 @@ def _write_sheet(sheet, frame: pd.DataFrame) -> None:
 
     Every text cell is stored as a string (type 's'), never as a formula, whatever it starts with.
     """
+    from openpyxl.styles import Font  # deferred with Workbook in _write_xlsx
+    from openpyxl.utils import get_column_letter
+
     frame = neutralise_frame(frame)
     sheet.append([str(c) for c in frame.columns])
     for row in frame.itertuples(index=False, name=None):
@@ -217,6 +218,8 @@ def _flag_rows(frame: pd.DataFrame) -> pd.DataFrame:
 
 
 def _write_xlsx(frame: pd.DataFrame, path: Path, results) -> None:
+    from openpyxl import Workbook  # deferred: ~0.1 s to import, and only an .xlsx file needs it
+
     book = Workbook()
     sheet = book.active
     sheet.title = "table"

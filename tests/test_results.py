@@ -1,0 +1,45 @@
+"""Results after a cold analysis are the figures the store keeps: returned from memory, equal to a warm read.
+
+Real DuckDB files in tmp_path holding the demo campaign (invented data).
+"""
+
+from __future__ import annotations
+
+import shutil
+
+import pandas as pd
+import pytest
+
+from catalog import store
+from catalog.analysis import results
+from catalog.analysis.settings import Settings
+from catalog.datasets.demo import demo_campaign
+from catalog.datasets.synth import write_campaign
+from catalog.ingest import sources
+
+
+@pytest.fixture(scope="module")
+def fresh_db(tmp_path_factory):
+    """A demo campaign imported but never analysed (the session's demo_db may already hold cached results)."""
+    folder = tmp_path_factory.mktemp("fresh")
+    write_campaign(demo_campaign(), folder)
+    db = folder / "fresh.duckdb"
+    store.import_campaign(db, sources.read_source(folder))
+    return db
+
+
+def test_cold_results_from_memory_equal_the_cached_read(fresh_db, tmp_path):
+    db = tmp_path / "copy.duckdb"
+    shutil.copy(fresh_db, db)
+    cold = results.get_results(db, Settings())
+    warm = results.get_results(db, Settings())
+    assert cold.computed and not warm.computed
+    assert (cold.run_key, cold.data_stamp) == (warm.run_key, warm.data_stamp)
+    # Same rows, columns (in the store's layout) and values; integer widths and string dtypes may differ between
+    # pandas and DuckDB.
+    pd.testing.assert_frame_equal(cold.trials, warm.trials, check_dtype=False)
+    pd.testing.assert_frame_equal(cold.catalysts, warm.catalysts, check_dtype=False)
+    pd.testing.assert_frame_equal(cold.flags, warm.flags, check_dtype=False)
+    assert cold.blank.keys() == warm.blank.keys()
+    assert all(cold.blank[k] == warm.blank[k] for k in cold.blank)
+

@@ -1,0 +1,66 @@
+"""Packaging habits and lean start-up: ``python -m catalog``, the version from package metadata, ``py.typed``, and
+each command loading only the libraries it uses (a check of which modules are imported, not of timings; those
+live in benchmarks/startup.py).
+
+Real DuckDB file in tmp_path holding the sample campaign shipped with the repository (invented data).
+"""
+
+from __future__ import annotations
+
+import importlib.metadata
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+import catalog
+from catalog.analysis import results
+from catalog.analysis.settings import Settings
+
+ROOT = Path(__file__).resolve().parents[1]
+HEAVY = ("scipy.stats", "scipy.optimize", "altair", "openpyxl", "vl_convert", "streamlit", "pint")
+
+
+def _loaded_by(*argv: str) -> set[str]:
+    """Heavy libraries a command loads, run in a fresh interpreter exactly as ``catalog ARGV`` would run it."""
+    code = ("import json, sys\nfrom catalog.cli import main\ncode = main(sys.argv[1:])\n"
+            f"print(json.dumps([m for m in {HEAVY!r} if m in sys.modules]))\nsys.exit(code)")
+    out = subprocess.run([sys.executable, "-c", code, *argv], capture_output=True, text=True, cwd=ROOT)
+    assert out.returncode == 0, out.stderr
+    return set(json.loads(out.stdout.strip().splitlines()[-1]))
+
+
+@pytest.fixture(scope="module")
+def sample_db(tmp_path_factory):
+    db = tmp_path_factory.mktemp("startup") / "sample.duckdb"
+    loaded = _loaded_by("import", str(ROOT / "sample_campaign"), "--db", str(db), "--quiet")
+    return db, loaded
+
+
+def test_python_dash_m_catalog_prints_the_version_from_the_package_metadata():
+    out = subprocess.run([sys.executable, "-m", "catalog", "--version"], capture_output=True, text=True, cwd=ROOT)
+    assert out.returncode == 0
+    assert out.stdout.strip() == f"catalog {importlib.metadata.version('catalog')}" == f"catalog {catalog.__version__}"
+
+
+def test_the_package_ships_its_type_marker():
+    # PEP 561: a py.typed file in the package tells type checkers to use its inline hints.
+    assert (Path(catalog.__file__).parent / "py.typed").is_file()
+
+
+def test_import_loads_no_fitting_plotting_or_spreadsheet_library(sample_db):
+    # pint is needed: the column headers carry units.
+    assert sample_db[1] <= {"pint"}
+
+
+@pytest.mark.parametrize("command", [["trials"], ["imports"], ["history"]])
+def test_listing_commands_load_no_heavy_library(sample_db, command):
+    assert _loaded_by(*command, "--db", str(sample_db[0])) == set()
+
+
+def test_a_warm_rank_loads_only_the_unit_registry(sample_db):
+    results.get_results(sample_db[0], Settings())  # the cold analysis, here, so the command finds it cached
+    # pint converts Ea and the rates to display units; nothing fits, plots or writes a workbook.
+    assert _loaded_by("rank", "--db", str(sample_db[0]), "--quiet") <= {"pint"}
