@@ -110,7 +110,7 @@ def blank_model(trials: pd.DataFrame, fits: pd.DataFrame) -> arrhenius.Arrhenius
     .. math:: \\frac{r_{0,b}}{\\nu\\, n_{A,0}} = A_b\\, e^{-E_{a,b}/RT}
 
     Weighted by each blank's own standard error on the log scale, with the Birge ratio widening the covariance
-    when the scatter exceeds those errors (:func:`catalog.core.arrhenius.fit_line`, ``scatter='birge'``): the
+    when the scatter exceeds those errors (:func:`catalog.core.linefit.fit_line`, ``scatter='birge'``): the
     blanks' precision spans orders of magnitude because their rates do, and an additive extra variance would flatten
     those weights and let the least precise blank pull the line.
     """

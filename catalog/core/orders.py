@@ -6,7 +6,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from catalog.core.arrhenius import fit_line
+from catalog.core.linefit import fit_line
 
 __all__ = ["OrderFit", "reaction_order"]
 
