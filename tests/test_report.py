@@ -18,7 +18,7 @@ from catalog.analysis import results
 from catalog.analysis.settings import Settings
 from catalog.core.hazard import CAUTION
 from catalog.errors import CatalogError
-from catalog.present import charts, report, tradeoff
+from catalog.present import charts, report, trace_charts, tradeoff
 
 
 @pytest.fixture(scope="module")
@@ -203,23 +203,23 @@ def test_arrhenius_lines_agree_with_the_catalyst_table(demo):
 
 def test_trace_frames_stay_inside_the_row_limit(demo):
     _, res, (_, _, points) = demo
-    ids = list(res.trials.index[: charts.MAX_TRACES])
-    observed, fitted = charts.trace_frames(res.trials, points, ids)
+    ids = list(res.trials.index[: trace_charts.MAX_TRACES])
+    observed, fitted = trace_charts.trace_frames(res.trials, points, ids)
     assert len(observed) <= charts.MAX_ROWS and len(fitted) <= charts.MAX_ROWS
     assert set(observed["trial_id"]) <= set(ids)
     # The fitted curve starts at zero conversion: the offset is subtracted from data and fit alike.
     starts = fitted.groupby("trial_id")["progress"].first()
     np.testing.assert_allclose(starts, 0.0, atol=1e-9)
-    chart = charts.trace_chart(res.trials, points, ids)
+    chart = trace_charts.trace_chart(res.trials, points, ids)
     assert chart.to_dict()  # Altair's own row limit is not switched off, so this would raise if exceeded
     with pytest.raises(CatalogError, match="at most"):
-        charts.trace_frames(res.trials, points, list(res.trials.index[: charts.MAX_TRACES + 1]))
+        trace_charts.trace_frames(res.trials, points, list(res.trials.index[: trace_charts.MAX_TRACES + 1]))
 
 
 def test_trace_in_amount_units_matches_the_fit(demo):
     _, res, (_, _, points) = demo
     tid = res.trials.index[res.trials["catalyst_id"].notna()][0]
-    observed, _ = charts.trace_frames(res.trials, points, [tid], normalise=False)
+    observed, _ = trace_charts.trace_frames(res.trials, points, [tid], normalise=False)
     # rmse is stored in mol; the residuals are in mmol (1 mmol = 1e-3 mol, SI prefix); a thinned subset of the
     # same residuals has an RMS of the same size (common practice, no source: within a factor 2).
     rms = float(np.sqrt(np.mean(observed["residual"] ** 2)))

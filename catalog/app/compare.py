@@ -9,7 +9,7 @@ import streamlit as st
 
 from catalog.analysis import ranking, results
 from catalog.app import common
-from catalog.present import charts, labels, tradeoff
+from catalog.present import charts, labels, trace_charts, tradeoff
 from catalog.present.numbers import format_interval, format_number
 from catalog.units import celsius, from_si
 
@@ -23,7 +23,7 @@ def overlay_chart(res: results.Results, points: pd.DataFrame, trial_ids: list[st
     Conversion :math:`X = (n - a)/n_\\max` (product formed over the most the limiting reactant can give) puts
     trials of different charges on one scale; dots are readings, lines the fitted rate laws.
     """
-    observed, fitted = charts.trace_frames(res.trials, points, trial_ids, normalise=True)
+    observed, fitted = trace_charts.trace_frames(res.trials, points, trial_ids, normalise=True)
     observed = observed.groupby("trial_id", group_keys=False).apply(
         lambda g: g.iloc[np.unique(np.linspace(0, len(g) - 1, min(len(g), OVERLAY_POINTS)).round().astype(int))])
     colour = alt.Color("catalyst_id:N", title="catalyst", scale=alt.Scale(scheme=charts.CATEGORY_SCHEME),
@@ -48,7 +48,7 @@ def _rows_height(n: int) -> int:
 
 def _trace_tab(db: str, res: results.Results, chosen: list[str]) -> None:
     ids: list[str] = []
-    share = max(1, charts.MAX_TRACES // len(chosen))
+    share = max(1, trace_charts.MAX_TRACES // len(chosen))
     for cid in chosen:
         ids += list(res.trials.index[res.trials["catalyst_id"] == cid])[:share]
     if not ids:

@@ -10,7 +10,7 @@ import streamlit as st
 from catalog.analysis import results
 from catalog.app import common
 from catalog.core.measurements import MEASUREMENTS
-from catalog.present import charts, labels
+from catalog.present import labels, trace_charts
 from catalog.present.numbers import format_number, format_pm, unit_label
 from catalog.units import celsius, from_si
 
@@ -82,9 +82,9 @@ def show_trial(db: str, res: results.Results, trial_id: str, compact: bool = Fal
     if row["flags"]:
         st.warning("Flags on this trial: " + common.text(labels.flags_text(row["flags"])))
     points = common.traces(db, res, [trial_id])
-    fit = charts.trace_chart(res.trials, points, [trial_id], normalise=False,
+    fit = trace_charts.trace_chart(res.trials, points, [trial_id], normalise=False,
                              title="Product formed (dots) and fitted rate law (line)").properties(height=300)
-    resid = charts.residual_chart(res.trials, points, [trial_id], normalise=False).properties(height=200)
+    resid = trace_charts.residual_chart(res.trials, points, [trial_id], normalise=False).properties(height=200)
     if compact:
         common.chart(fit)
         common.chart(resid)

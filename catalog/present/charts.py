@@ -18,28 +18,22 @@ import numpy as np
 import pandas as pd
 
 from catalog.analysis.per_catalyst import standard_series
-from catalog.analysis.per_trial import trace_amounts
-from catalog.core import arrhenius, batch
+from catalog.core import arrhenius
 from catalog.core.stats import Z95
 from catalog.errors import CatalogError
 from catalog.present import labels
-from catalog.units import celsius, from_si
+from catalog.units import celsius
 
 __all__ = [
     "MAX_ROWS",
-    "MAX_TRACES",
     "arrhenius_chart",
     "enhancement_chart",
     "pareto_chart",
-    "residual_chart",
     "tof_bar_chart",
-    "trace_chart",
 ]
 
 #: Rows of one data set a chart may carry; Altair's own default limit, kept rather than switched off.
 MAX_ROWS = 5000
-#: More overlaid traces than this cannot be told apart on one plot.
-MAX_TRACES = 40
 #: Points on each fitted curve: enough for a smooth line at screen resolution.
 CURVE_POINTS = 60
 #: Categorical colours for catalysts (Tableau 10: ten hues chosen to stay distinct for common colour-vision types).
@@ -51,11 +45,11 @@ ROW_STEP = 24
 #: Longest catalyst label drawn before it is cut with an ellipsis, px.
 LABEL_LIMIT = 220
 
-_WIDTH = 420
-_HEIGHT = 300
+WIDTH = 420
+HEIGHT = 300
 
 
-def _pick(frame: pd.DataFrame, ids: Iterable[str] | None) -> pd.DataFrame:
+def pick(frame: pd.DataFrame, ids: Iterable[str] | None) -> pd.DataFrame:
     """Rows of ``frame`` for ``ids`` in the given order (all rows when None); unknown ids are a user error."""
     if ids is None:
         return frame
@@ -163,159 +157,10 @@ def arrhenius_chart(results, catalyst_ids: Iterable[str]) -> alt.LayerChart:
     band = base_lines.mark_area(opacity=0.18).encode(x=x, y="ln_low:Q", y2="ln_high:Q", color=colour)
     fitted = base_lines.mark_line(strokeWidth=1.5).encode(x=x, y="ln_tof:Q", color=colour)
     return alt.layer(band, fitted, bars, dots).properties(
-        width=_WIDTH, height=_HEIGHT, title="Arrhenius plot of TOF (fit ± 95 % confidence band)")
+        width=WIDTH, height=HEIGHT, title="Arrhenius plot of TOF (fit ± 95 % confidence band)")
 
 
 # ------------------------------------------------------------------------------------------------------- traces
-
-def _thin(codes: np.ndarray, per_trial: int) -> np.ndarray:
-    """Boolean mask keeping at most ``per_trial`` evenly spaced readings of each trial (first and last kept)."""
-    keep = np.zeros(len(codes), dtype=bool)
-    starts = np.flatnonzero(np.r_[True, codes[1:] != codes[:-1]])
-    ends = np.r_[starts[1:], len(codes)]
-    for lo, hi in zip(starts, ends, strict=True):
-        n = hi - lo
-        idx = np.unique(np.round(np.linspace(0, n - 1, min(n, per_trial))).astype(int)) if n else []
-        keep[lo + np.asarray(idx, dtype=int)] = True
-    return keep
-
-
-def trace_frames(trials: pd.DataFrame, points: pd.DataFrame, trial_ids: Iterable[str],
-                 normalise: bool = True) -> tuple[pd.DataFrame, pd.DataFrame]:
-    """Measured and fitted progress of each trial, ready to plot, thinned to fit :data:`MAX_ROWS`.
-
-    Amounts come from :func:`catalog.analysis.trace_amounts` and the fitted curves from
-    :func:`catalog.core.batch.curve_values`; both are shifted by the fitted offset so every trial starts at zero.
-    With ``normalise`` the progress is the conversion :math:`X = (n - a)/n_\\max`; trials without a stoichiometric
-    maximum then have no conversion and are left out. Otherwise it is the amount of product in mmol.
-
-    Parameters
-    ----------
-    trials : DataFrame
-        ``Results.trials`` (indexed by trial_id: conditions and the kinetic fit columns).
-    points : DataFrame
-        Long-form readings ``trial_id, t, value`` in SI, e.g. the third table of ``catalog.store.load_campaign``.
-    trial_ids : iterable of str
-        At most :data:`MAX_TRACES` trials.
-    normalise : bool
-
-    Returns
-    -------
-    observed : DataFrame
-        trial_id, catalyst_id, temperature_c, time_min, progress, residual (data − fit, same unit as progress).
-    fitted : DataFrame
-        trial_id, catalyst_id, temperature_c, time_min, progress.
-
-    Raises
-    ------
-    CatalogError
-        More than :data:`MAX_TRACES` trials, or a trial without results.
-    """
-    ids = list(dict.fromkeys(trial_ids))
-    if len(ids) > MAX_TRACES:
-        raise CatalogError(f"{len(ids)} traces asked for; at most {MAX_TRACES} can be overlaid on one chart")
-    table = _pick(trials, ids)
-    sel = points[points["trial_id"].isin(ids)].sort_values(["trial_id", "t"], kind="stable").reset_index(drop=True)
-    codes, uniques = pd.factorize(sel["trial_id"], sort=False)
-    t = sel["t"].to_numpy(float)
-    fits = table.loc[uniques, ["model", "r0", "k", "plateau", "offset"]].reset_index(drop=True)
-    amount = trace_amounts(table, sel)
-    model_at_points = batch.curve_values(fits, codes, t)
-    n_max = table.loc[uniques, "n_max"].to_numpy(float) if normalise else None
-
-    def progress(values, trial_codes):
-        shifted = values - fits["offset"].to_numpy(float)[trial_codes]
-        if normalise:
-            with np.errstate(divide="ignore", invalid="ignore"):
-                return shifted / np.where(n_max[trial_codes] > 0, n_max[trial_codes], np.nan)
-        return from_si(shifted, "mmol")
-
-    observed_y = progress(amount, codes)
-    fitted_y = progress(model_at_points, codes)
-    keep = _thin(codes, max(2, MAX_ROWS // max(len(uniques), 1)))
-    info = table.loc[uniques]
-    observed = pd.DataFrame({
-        "trial_id": np.asarray(uniques)[codes], "catalyst_id": info["catalyst_id"].to_numpy()[codes],
-        "temperature_c": celsius(info["temperature"].to_numpy(float))[codes], "time_min": from_si(t, "min"),
-        "progress": observed_y, "residual": observed_y - fitted_y})[keep]
-    grid_codes = np.repeat(np.arange(len(uniques)), CURVE_POINTS)
-    t_end = sel.groupby(codes)["t"].max().reindex(range(len(uniques))).to_numpy(float)
-    grid_t = (np.linspace(0.0, 1.0, CURVE_POINTS)[None, :] * t_end[:, None]).ravel()
-    fitted = pd.DataFrame({
-        "trial_id": np.asarray(uniques)[grid_codes], "catalyst_id": info["catalyst_id"].to_numpy()[grid_codes],
-        "temperature_c": celsius(info["temperature"].to_numpy(float))[grid_codes],
-        "time_min": from_si(grid_t, "min"), "progress": progress(batch.curve_values(fits, grid_codes, grid_t),
-                                                                 grid_codes)})
-    observed = observed[np.isfinite(observed["progress"].to_numpy(float))].reset_index(drop=True)
-    fitted = fitted[np.isfinite(fitted["progress"].to_numpy(float))].reset_index(drop=True)
-    return observed, fitted
-
-
-def _progress_title(normalise: bool) -> str:
-    return "conversion" if normalise else "product [mmol]"
-
-
-def _trace_encodings():
-    colour = alt.Color("temperature_c:Q", title="T [°C]", scale=alt.Scale(scheme=TEMPERATURE_SCHEME))
-    tips = [alt.Tooltip("trial_id:N", title="trial"), alt.Tooltip("catalyst_id:N", title="catalyst"),
-            alt.Tooltip("temperature_c:Q", title="T [°C]", format=".1f"),
-            alt.Tooltip("time_min:Q", title="t [min]", format=".2f")]
-    return colour, tips
-
-
-def trace_chart(trials: pd.DataFrame, points: pd.DataFrame, trial_ids: Iterable[str], normalise: bool = True,
-                title: str | None = None) -> alt.LayerChart:
-    """Progress against time for several trials: thinned readings as dots, the chosen rate-law fit as a line.
-
-    Takes pre-loaded points rather than a database, so it stays pure; pass
-    ``catalog.store.load_campaign(db)[2]`` or the concatenated ``load_trace`` frames (with a trial_id column).
-    Colour is the trial temperature; hover a dot for its trial.
-
-    Parameters
-    ----------
-    trials, points, trial_ids, normalise
-        As :func:`trace_frames`.
-    title : str, optional
-
-    Returns
-    -------
-    altair.LayerChart
-    """
-    observed, fitted = trace_frames(trials, points, trial_ids, normalise)
-    colour, tips = _trace_encodings()
-    x = alt.X("time_min:Q", title="time [min]")
-    y_title = _progress_title(normalise)
-    dots = alt.Chart(observed).mark_circle(size=14, opacity=0.55).encode(
-        x=x, y=alt.Y("progress:Q", title=y_title), color=colour, detail="trial_id:N",
-        tooltip=[*tips, alt.Tooltip("progress:Q", title=y_title, format=".4g")])
-    lines = alt.Chart(fitted).mark_line(strokeWidth=1.4).encode(
-        x=x, y="progress:Q", color=colour, detail="trial_id:N", tooltip=tips)
-    return alt.layer(dots, lines).properties(width=_WIDTH, height=_HEIGHT,
-                                             title=title or "Progress with fitted rate law")
-
-
-def residual_chart(trials: pd.DataFrame, points: pd.DataFrame, trial_ids: Iterable[str], normalise: bool = True,
-                   title: str | None = None) -> alt.LayerChart:
-    """Residuals (reading − fitted curve) against time: a fit that suits the data scatters evenly about zero.
-
-    A run of residuals on one side late in the trace suggests deactivation or a wrong rate law; the diagnostics
-    put numbers on both (late-residual and runs tests). Arguments as :func:`trace_chart`.
-
-    Returns
-    -------
-    altair.LayerChart
-    """
-    observed, _ = trace_frames(trials, points, trial_ids, normalise)
-    colour, tips = _trace_encodings()
-    y_title = f"residual ({_progress_title(normalise)})"
-    zero = alt.Chart(pd.DataFrame({"y": [0.0]})).mark_rule(color="grey").encode(y="y:Q")
-    dots = alt.Chart(observed).mark_circle(size=14, opacity=0.6).encode(
-        x=alt.X("time_min:Q", title="time [min]"), y=alt.Y("residual:Q", title=y_title), color=colour,
-        detail="trial_id:N", tooltip=[*tips, alt.Tooltip("residual:Q", title="residual", format=".3g")])
-    return alt.layer(zero, dots).properties(width=_WIDTH, height=_HEIGHT, title=title or "Residuals of the fits")
-
-
-# ---------------------------------------------------------------------------------------------- catalyst figures
 
 def _interval_chart(frame: pd.DataFrame, value: str, low: str, high: str, axis_title: str, log: bool,
                     title: str, rule_at: float | None = None) -> alt.LayerChart:
@@ -343,7 +188,7 @@ def _interval_chart(frame: pd.DataFrame, value: str, low: str, high: str, axis_t
         layers.append(alt.Chart(pd.DataFrame({value: [float(rule_at)]})).mark_rule(
             strokeDash=[4, 3], color="grey").encode(x=f"{value}:Q"))
     # A step height gives every catalyst its own row whatever width the page gives the chart.
-    return alt.layer(*layers).properties(width=_WIDTH, height=alt.Step(ROW_STEP), title=title)
+    return alt.layer(*layers).properties(width=WIDTH, height=alt.Step(ROW_STEP), title=title)
 
 
 def tof_bar_chart(catalysts: pd.DataFrame, reference_temperature: float,
@@ -361,7 +206,7 @@ def tof_bar_chart(catalysts: pd.DataFrame, reference_temperature: float,
     catalyst_ids : iterable of str, optional
         Which catalysts and in which order (e.g. the ranking's index); all, by id, when None.
     """
-    rows = _pick(catalysts, catalyst_ids)
+    rows = pick(catalysts, catalyst_ids)
     frame = pd.DataFrame({
         "catalyst_id": rows.index.to_numpy(), "tof": rows["tof_ref"].to_numpy(float),
         "tof_low": rows["tof_ref_low"].to_numpy(float), "tof_high": rows["tof_ref_high"].to_numpy(float),
@@ -389,7 +234,7 @@ def enhancement_chart(catalysts: pd.DataFrame, catalyst_ids: Iterable[str] | Non
     catalyst_ids : iterable of str, optional
     threshold : float, optional
     """
-    rows = _pick(catalysts, catalyst_ids)
+    rows = pick(catalysts, catalyst_ids)
     frame = pd.DataFrame({
         "catalyst_id": rows.index.to_numpy(), "enhancement": rows["enhancement_ref"].to_numpy(float),
         "low": rows["enhancement_ref_low"].to_numpy(float), "high": rows["enhancement_ref_high"].to_numpy(float),
@@ -457,5 +302,5 @@ def pareto_chart(catalysts: pd.DataFrame, x_metric: str, y_metric: str, front: I
     path = alt.Chart(frame[frame["pareto"]].sort_values("x")).mark_line(color="black", strokeDash=[3, 2]).encode(
         x="x:Q", y="y:Q", order="x:Q")
     return alt.layer(path, dots, labels_layer).properties(
-        width=_WIDTH, height=_HEIGHT, title="Trade-off (filled and joined: Pareto set; ⚠ triangle: transport warning)")
+        width=WIDTH, height=HEIGHT, title="Trade-off (filled and joined: Pareto set; ⚠ triangle: transport warning)")
 

@@ -31,7 +31,7 @@ from catalog.analysis.results import Results, get_results
 from catalog.analysis.settings import Settings
 from catalog.core.hazard import CAUTION
 from catalog.errors import CatalogError
-from catalog.present import charts, exports, labels, tradeoff
+from catalog.present import charts, exports, labels, trace_charts, tradeoff
 from catalog.present.files import atomic_write
 from catalog.present.numbers import MISSING, format_interval, format_number, unit_label
 from catalog.units import from_si
@@ -312,9 +312,9 @@ def render_report(results: Results, ranked: pd.DataFrame, top_k: int, points: pd
                                  "the smallest the diagnostics accept without a flag."))
     traces = []
     for cid in shortlist:
-        trial_ids = list(results.trials.index[results.trials["catalyst_id"] == cid])[:charts.MAX_TRACES]
-        both = alt.hconcat(charts.trace_chart(results.trials, points, trial_ids, title=f"{cid}: conversion"),
-                           charts.residual_chart(results.trials, points, trial_ids, title=f"{cid}: residuals"))
+        trial_ids = list(results.trials.index[results.trials["catalyst_id"] == cid])[:trace_charts.MAX_TRACES]
+        both = alt.hconcat(trace_charts.trace_chart(results.trials, points, trial_ids, title=f"{cid}: conversion"),
+                           trace_charts.residual_chart(results.trials, points, trial_ids, title=f"{cid}: residuals"))
         traces.append(chart(both, f"{cid}: readings (thinned for display) with the fitted rate law of each trial, "
                                   "and the residuals of those fits."))
 
