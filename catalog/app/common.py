@@ -26,7 +26,6 @@ from catalog.present import labels
 from catalog.present.numbers import MISSING
 from catalog.units import from_si, kelvin
 
-SAMPLE_FOLDER = Path(__file__).resolve().parents[2] / "sample_campaign"
 DEFAULT_REFERENCE_C = 35.0
 BLANK_LABEL = "(blank, no catalyst)"
 #: Currency written for prices (the ranking's neutral 'money'); the CLI reads the same variable.
@@ -66,10 +65,10 @@ def seed_if_new(db: str) -> bool:
         if counts["imports"] or counts["trials"] or len(store.history(db)):
             return False
     with tempfile.TemporaryDirectory() as tmp:
-        folder = SAMPLE_FOLDER
-        if not (folder / sources.TRACES_FILE).is_file():
-            folder = Path(tmp) / "demo"
-            synth.write_campaign(demo.demo_campaign(), folder)
+        # The seeded generator makes the same files as sample_campaign/ (tested), so an installed package needs no
+        # data folder beside it.
+        folder = Path(tmp) / "demo"
+        synth.write_campaign(demo.demo_campaign(), folder)
         store.import_campaign(db, sources.read_source(folder), demo=True, who="catalog demo")
     return True
 
