@@ -113,7 +113,8 @@ def _progress_title(normalise: bool) -> str:
 
 
 def _trace_encodings():
-    colour = alt.Color("temperature_c:Q", title="T [°C]", scale=alt.Scale(scheme=TEMPERATURE_SCHEME))
+    colour = alt.Color("temperature_c:Q", title="T [°C]", scale=alt.Scale(scheme=TEMPERATURE_SCHEME),
+                       legend=alt.Legend(format=".1f"))  # one trial: a single 35.1, not 35.100000
     tips = [alt.Tooltip("trial_id:N", title="trial"), alt.Tooltip("catalyst_id:N", title="catalyst"),
             alt.Tooltip("temperature_c:Q", title="T [°C]", format=".1f"),
             alt.Tooltip("time_min:Q", title="t [min]", format=".2f")]
