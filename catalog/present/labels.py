@@ -24,7 +24,7 @@ ENHANCEMENT = "rate enhancement over the uncatalysed blank"
 ENHANCEMENT_SHORT = "rate enhancement"
 
 #: Shown for prices when no currency is set.
-NO_CURRENCY = "currency unit"
+NO_CURRENCY = "currency"  # one word: a two-word placeholder would be typeset as two units
 
 #: Ranking figure key → (name, short name, display unit as understood by ``catalog.units``; None: no unit).
 FIGURES: dict[str, tuple[str, str, str | None]] = {
