@@ -11,6 +11,11 @@ import duckdb
 import numpy as np
 import pandas as pd
 
+from catalog import store
+from catalog.datasets.demo import demo_campaign
+from catalog.datasets.synth import write_campaign as write_files
+from catalog.ingest import sources
+
 CATALYSTS = """catalyst_id,metal,metal_loading [wt%],dispersion [%],site_density [umol/g],surface_area [m^2/g],support
 PdC-A,Pd,5,25,,900,carbon
 RuAl-B,Ru,1.5,40,,180,alumina
@@ -76,3 +81,11 @@ def synthetic_trace(order, rng, n=60, t_end=1800.0, plateau=2e-3, kappa=4.0, off
     else:
         shape, r0 = x / (1 + x), plateau * kappa / t_end
     return t, offset + plateau * shape + rng.normal(0.0, noise * plateau, n), r0
+
+
+def import_demo(folder: Path, name: str = "demo.duckdb") -> Path:
+    """Write the invented demo campaign into ``folder`` and import it into a fresh database file there."""
+    write_files(demo_campaign(), folder)
+    db = folder / name
+    store.import_campaign(db, sources.read_source(folder))
+    return db

@@ -9,23 +9,16 @@ import shutil
 
 import pandas as pd
 import pytest
+from support import import_demo
 
-from catalog import store
 from catalog.analysis import results
 from catalog.analysis.settings import Settings
-from catalog.datasets.demo import demo_campaign
-from catalog.datasets.synth import write_campaign
-from catalog.ingest import sources
 
 
 @pytest.fixture(scope="module")
 def fresh_db(tmp_path_factory):
     """A demo campaign imported but never analysed (the session's demo_db may already hold cached results)."""
-    folder = tmp_path_factory.mktemp("fresh")
-    write_campaign(demo_campaign(), folder)
-    db = folder / "fresh.duckdb"
-    store.import_campaign(db, sources.read_source(folder))
-    return db
+    return import_demo(tmp_path_factory.mktemp("fresh"), "fresh.duckdb")
 
 
 def test_cold_results_from_memory_equal_the_cached_read(fresh_db, tmp_path):
