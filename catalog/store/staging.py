@@ -6,6 +6,7 @@ that each fault is reported with its file, line, column and text as written.
 
 from __future__ import annotations
 
+import csv
 import dataclasses
 from pathlib import Path
 
@@ -66,7 +67,8 @@ def stage_traces(
         try:
             _stage_text(stage, source, names)
         except duckdb.Error as exc:
-            return [Problem(label, None, None, f"cannot be read as CSV: {first_line(exc)}")], notes
+            ragged = _ragged_lines(source.traces.csv_path, label)
+            return ragged or [Problem(label, None, None, f"cannot be read as CSV: {first_line(exc)}")], notes
         located = []
         for condition, column, message in _TRACE_FAULTS:
             located += _located(stage, f"SELECT line, trial_id, time_text, value_text FROM typed WHERE {condition}",
@@ -237,3 +239,21 @@ def same_traces(con, stage, overlap: list[str]) -> set[str]:
     return {r[0] for r in rows}
 
 
+def _ragged_lines(path, label: str, limit: int = 50) -> list[Problem]:
+    """Lines whose number of fields differs from the header's, located for the user (only read when DuckDB's
+    reader has already refused the file, so a clean import never pays for it)."""
+    if path is None:
+        return []
+    problems: list[Problem] = []
+    with open(path, newline="", encoding="utf-8-sig", errors="replace") as handle:
+        rows = csv.reader(handle)
+        header = next(rows, None)
+        if header is None:
+            return []
+        for row in rows:
+            if row and len(row) != len(header):
+                problems.append(Problem(label, rows.line_num, None,
+                                        f"has {len(row)} fields where the header has {len(header)}"))
+                if len(problems) >= limit:
+                    break
+    return problems
