@@ -181,17 +181,33 @@ def curvature_basis(model: str, kappa, u, derivatives: int = 0) -> tuple:
     x = kappa * u
     small = np.abs(x) < _SERIES_BELOW
     xs = np.where(small, 1.0, x)  # placeholder where the series takes over
-    phis = [-np.expm1(-xs) / xs]
+    # in place: these arrays are the fits' hottest temporaries
+    neg = np.negative(xs, out=np.empty(x.shape))  # out=: arrays even for 0-d input, so the updates stay in place
+    phi0 = np.expm1(neg, out=np.empty(x.shape))
+    np.negative(phi0, out=phi0)
+    phi0 /= xs
+    phis = [phi0]
     if derivatives >= 1:
-        em = np.exp(-xs)
-        phis.append((em - phis[0]) / xs)
+        em = np.exp(neg, out=neg)
+        phi1 = np.subtract(em, phi0, out=np.empty(x.shape))
+        phi1 /= xs
+        phis.append(phi1)
     if derivatives >= 2:
-        phis.append(-(em + 2.0 * phis[1]) / xs)
+        phi2 = np.multiply(2.0, phi1, out=np.empty(x.shape))
+        phi2 += em
+        np.negative(phi2, out=phi2)
+        phi2 /= xs
+        phis.append(phi2)
     if small.any():
         xsmall = x[small]
         for phi, coef in zip(phis, (_PHI1, _PHI1_D1, _PHI1_D2), strict=False):
             phi[small] = np.polynomial.polynomial.polyval(xsmall, coef)
-    return tuple(u ** (i + 1) * phi for i, phi in enumerate(phis))
+    phi0 *= u
+    if derivatives >= 1:
+        phi1 *= u * u
+    if derivatives >= 2:
+        phi2 *= u**3
+    return tuple(phis)
 
 
 def shape(code, u, theta) -> np.ndarray:
