@@ -84,7 +84,9 @@ def _fit_line_at(g, Y, W, n, offset=True):
     """Closed-form y = alpha + rho g per row; residual sum of squares from the residuals themselves."""
     sg, sgg, sy, sgy = _rowsum(g), _rowsum(g, g), _rowsum(Y), _rowsum(g, Y)
     alpha, rho, det = linear_fit(n, sg, sgg, sy, sgy, offset)
-    R = np.where(W, Y - alpha[:, None] - rho[:, None] * g, 0.0)
+    R = np.subtract(Y, alpha[:, None])
+    R -= rho[:, None] * g
+    R[~W] = 0.0
     rss = _rowsum(R, R)
     # A singular design (g constant over the readings, e.g. a late first reading at a huge curvature) has no fit.
     good = (det > 1e-13 * np.maximum(n * sgg, 1e-300)) & np.isfinite(rss) & (rss >= 0)

@@ -69,11 +69,16 @@ def _pack(model, kappa, U, Y, W, n, m, offset, ok) -> ModelFit:
 
 
 def _profile_rss(model, kappa, U, Y, W, n, m, offset):
-    h = np.where(W, kappa * curvature_basis(model, kappa, U)[0], 0.0)
-    z = np.where(W, Y - m[:, None] * h, 0.0)
+    # U and Y are zero off the readings (padding, cut points) and so is g(0) = 0: only the centring needs the mask.
+    z = curvature_basis(model, kappa, U)[0]
+    z *= kappa
+    z *= m[:, None]
+    np.subtract(Y, z, out=z)
     if offset:
-        z = np.where(W, z - (z.sum(1) / np.maximum(n, 1))[:, None], 0.0)
-    rss = (z * z).sum(1)
+        z -= (z.sum(1) / np.maximum(n, 1))[:, None]
+        z[~W] = 0.0
+    z *= z
+    rss = z.sum(1)
     return np.where(np.isfinite(rss) & (rss >= 0), rss, np.inf)
 
 
@@ -96,11 +101,15 @@ def _newton_terms(model, kappa, U, Y, W, n, m, offset):
     .. math:: \\phi = -2 m\\, h'^T r,\\qquad \\phi' = 2 m^2\\, \\lVert h' - \\bar{h'}\\rVert^2 - 2 m\\, h''^T r
     """
     kap = kappa[:, None]
+    # zero off the readings without a mask: U = Y = 0 there, g(0) and its derivatives vanish, kappa and m are finite
     g, d, e = curvature_basis(model, kap, U, 2)
-    h = np.where(W, kap * g, 0.0)
-    dh = np.where(W, g + kap * d, 0.0)
-    ddh = np.where(W, 2 * d + kap * e, 0.0)
-    r = np.where(W, Y - m[:, None] * h, 0.0)
+    h = kap * g
+    dh = kap * d
+    dh += g
+    ddh = kap * e
+    ddh += 2 * d
+    r = m[:, None] * h
+    np.subtract(Y, r, out=r)
     if offset:
         nn = np.maximum(n, 1)[:, None]
         r = np.where(W, r - r.sum(1, keepdims=True) / nn, 0.0)
