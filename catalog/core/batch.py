@@ -48,7 +48,7 @@ from catalog.core.kinetics import (
     normalise,
     shape,
 )
-from catalog.core.plateau_fit import fit_full_batch
+from catalog.core.plateau_fit import FULL_GRID, fit_full_batch, profile_rss
 from catalog.core.selection import summarise
 
 __all__ = ["COLUMNS", "curve_values", "fit_traces"]
@@ -80,9 +80,10 @@ def _jtj(n, sg, sgg, sd, sgd, sdd, rho):
                      np.stack([rho * sd, rho * sgd, rho * rho * sdd], -1)], -2)
 
 
-def _fit_line_at(g, Y, W, n, offset=True):
+def _fit_line_at(g, Y, W, n, offset=True, sy=None):
     """Closed-form y = alpha + rho g per row; residual sum of squares from the residuals themselves."""
-    sg, sgg, sy, sgy = _rowsum(g), _rowsum(g, g), _rowsum(Y), _rowsum(g, Y)
+    sg, sgg, sgy = _rowsum(g), _rowsum(g, g), _rowsum(g, Y)
+    sy = _rowsum(Y) if sy is None else sy
     alpha, rho, det = linear_fit(n, sg, sgg, sy, sgy, offset)
     R = np.subtract(Y, alpha[:, None])
     R -= rho[:, None] * g
@@ -158,14 +159,27 @@ def _profile(model, kappa, U, Y, n, sy, offset=True):
     return alpha, rho, phi, dphi, g, d
 
 
-def _fit_curved(model, U, Y, W, n, eligible, offset=True) -> ModelFit:
-    m = U.shape[0]
-    sy = _rowsum(Y)
-    grid = np.empty((m, CURVATURE_GRID.size))
-    for q, kappa in enumerate(CURVATURE_GRID):
-        # RSS from the residuals, never from syy - alpha sy - rho sgy: that difference cancels to a negative (or,
-        # with a singular design, -inf) value, which argmin would take as the best fit.
-        grid[:, q] = _fit_line_at(curvature_basis(model, kappa, U)[0], Y, W, n, offset)[2]
+def _grids(model, U, Y, W, n, sy, m_full, offset=True):
+    """Profile RSS of the free-plateau fit on CURVATURE_GRID and, if ``m_full`` is given, of the fixed-plateau fit
+    on FULL_GRID; the basis is evaluated once where the two grids share a point."""
+    free = np.empty((U.shape[0], CURVATURE_GRID.size))
+    full = None if m_full is None else np.empty((U.shape[0], FULL_GRID.size))
+    kappas = CURVATURE_GRID if m_full is None else np.union1d(CURVATURE_GRID, FULL_GRID)
+    for kappa in kappas:
+        g = curvature_basis(model, kappa, U)[0]
+        q = np.flatnonzero(CURVATURE_GRID == kappa)
+        if q.size:
+            # RSS from the residuals, never from syy - alpha sy - rho sgy: that difference cancels to a negative
+            # (or, with a singular design, -inf) value, which argmin would take as the best fit.
+            free[:, q[0]] = _fit_line_at(g, Y, W, n, offset, sy)[2]
+        q = np.flatnonzero(FULL_GRID == kappa) if full is not None else q[:0]
+        if q.size:
+            full[:, q[0]] = profile_rss(model, kappa, U, Y, W, n, m_full, offset, g)
+    return free, full
+
+
+def _fit_curved(model, U, Y, W, n, eligible, grid, sy, offset=True) -> ModelFit:
+    """Free-plateau fit refined from its profile RSS ``grid`` on CURVATURE_GRID (:func:`_grids`)."""
     i = np.argmin(np.where(np.isnan(grid), np.inf, grid), axis=1)
     last = CURVATURE_GRID.size - 1
     x = CURVATURE_GRID[i]
@@ -203,16 +217,18 @@ def _fit_chunk(T, Yr, W, n_max, models, offset=True) -> dict:
     max_rate, induction_z = trace_shape.induction(T, Yr, W)
     U, Y, c, s, tmax = normalise(T, Yr, W, offset)
     n = W.sum(axis=1).astype(float)
+    sy = _rowsum(Y)
     eligible = model_eligible(U, W, n, tmax)
     fits = {}
     for mo in models:
         if mo == "zero":
             fits |= _fit_zero(U, Y, W, n, eligible, offset)
             continue
-        fits[mo] = _fit_curved(mo, U, Y, W, n, eligible, offset)
         known = np.isfinite(n_max) & (n_max > 0)
+        grid, full_grid = _grids(mo, U, Y, W, n, sy, n_max / s if known.any() else None, offset)
+        fits[mo] = _fit_curved(mo, U, Y, W, n, eligible, grid, sy, offset)
         if known.any():
-            fits[f"{mo}_full"] = fit_full_batch(mo, U, Y, W, n, n_max / s, offset, eligible & known)
+            fits[f"{mo}_full"] = fit_full_batch(mo, U, Y, W, n, n_max / s, offset, eligible & known, full_grid)
     out = summarise(U, Y, W, c, s, tmax, fits, models, n_max, offset)
     return out | {"leak_cut": cut, "max_rate": max_rate, "induction_z": induction_z}
 

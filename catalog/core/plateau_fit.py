@@ -29,7 +29,7 @@ from scipy.optimize import minimize_scalar
 
 from catalog.core.kinetics import CURVATURE_MAX, ModelFit, covariance, curvature_basis
 
-__all__ = ["FULL_GRID", "fit_full", "fit_full_batch"]
+__all__ = ["FULL_GRID", "fit_full", "fit_full_batch", "profile_rss"]
 
 #: dimensionless curvature grid of the fixed-plateau fits: 2 points a decade from 1e-6 to 1e3 (the profile is
 #: smooth and unimodal in log kappa; the refinement brackets the best point by its neighbours)
@@ -68,10 +68,12 @@ def _pack(model, kappa, U, Y, W, n, m, offset, ok) -> ModelFit:
     return ModelFit(alpha, m * kappa, kappa, rss, cov, np.full(len(n), float(p)), np.full(len(n), float(p)), ok)
 
 
-def _profile_rss(model, kappa, U, Y, W, n, m, offset):
+def profile_rss(model, kappa, U, Y, W, n, m, offset, g=None):
+    """Profile RSS at one scalar kappa per row (inf where not finite); ``g``: the basis at kappa, if already known."""
     # U and Y are zero off the readings (padding, cut points) and so is g(0) = 0: only the centring needs the mask.
-    z = curvature_basis(model, kappa, U)[0]
-    z *= kappa
+    z = curvature_basis(model, kappa, U)[0] if g is None else g * kappa
+    if g is None:
+        z *= kappa
     z *= m[:, None]
     np.subtract(Y, z, out=z)
     if offset:
@@ -86,10 +88,10 @@ def fit_full(model: str, u, y, m: float, offset: bool = True) -> ModelFit:
     """Reference fixed-plateau fit of one normalised trace (u, y), plateau m in units of y."""
     U, Y, W = u[None, :], y[None, :], np.ones((1, len(u)), bool)
     n, mm = np.array([float(len(u))]), np.array([float(m)])
-    grid = [float(_profile_rss(model, k, U, Y, W, n, mm, offset)[0]) for k in FULL_GRID]
+    grid = [float(profile_rss(model, k, U, Y, W, n, mm, offset)[0]) for k in FULL_GRID]
     i = int(np.argmin(grid))
     lo, hi = FULL_GRID[max(i - 1, 0)], FULL_GRID[min(i + 1, FULL_GRID.size - 1)]
-    sol = minimize_scalar(lambda k: float(_profile_rss(model, k, U, Y, W, n, mm, offset)[0]), bounds=(lo, hi),
+    sol = minimize_scalar(lambda k: float(profile_rss(model, k, U, Y, W, n, mm, offset)[0]), bounds=(lo, hi),
                           method="bounded", options={"xatol": 1e-13 * hi, "maxiter": 500})
     kappa = float(sol.x) if np.isfinite(sol.fun) else np.nan
     return _pack(model, np.array([kappa]), U, Y, W, n, mm, offset, np.array([np.isfinite(kappa)]))
@@ -121,13 +123,15 @@ def _newton_terms(model, kappa, U, Y, W, n, m, offset):
     return phi, dphi
 
 
-def fit_full_batch(model: str, U, Y, W, n, m, offset: bool, eligible) -> ModelFit:
+def fit_full_batch(model: str, U, Y, W, n, m, offset: bool, eligible, grid=None) -> ModelFit:
     """Vectorised fixed-plateau fits of padded normalised rows; ``m`` is each row's plateau in units of y.
 
     The grid point of least RSS brackets the minimum between its neighbours; safeguarded Newton on
-    phi = dRSS/dkappa (bisection whenever a step leaves the bracket or phi' <= 0) refines it.
+    phi = dRSS/dkappa (bisection whenever a step leaves the bracket or phi' <= 0) refines it. ``grid``: the
+    (rows, FULL_GRID) profile RSS of :func:`profile_rss`, when the caller has scanned it already.
     """
-    grid = np.stack([_profile_rss(model, k, U, Y, W, n, m, offset) for k in FULL_GRID], 1)
+    if grid is None:
+        grid = np.stack([profile_rss(model, k, U, Y, W, n, m, offset) for k in FULL_GRID], 1)
     i = np.argmin(grid, axis=1)
     last = FULL_GRID.size - 1
     lo, hi = FULL_GRID[np.maximum(i - 1, 0)], FULL_GRID[np.minimum(i + 1, last)]
