@@ -177,7 +177,8 @@ def curvature_basis(model: str, kappa, u, derivatives: int = 0) -> tuple:
     kappa, u = np.broadcast_arrays(np.asarray(kappa, dtype=float), np.asarray(u, dtype=float))
     if model == "second":
         g = u / (1.0 + kappa * u)
-        return (g, -g * g, 2.0 * g**3)[: derivatives + 1]
+        # only the derivatives asked for: g**3 costs more than the basis itself
+        return (g,) + ((-g * g,) if derivatives >= 1 else ()) + ((2.0 * g**3,) if derivatives >= 2 else ())
     x = kappa * u
     small = np.abs(x) < _SERIES_BELOW
     xs = np.where(small, 1.0, x)  # placeholder where the series takes over
