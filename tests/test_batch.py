@@ -8,7 +8,8 @@ import pytest
 from support import synthetic_trace
 
 from catalog.core.batch import COLUMNS, curve_values, fit_traces
-from catalog.core.kinetics import MODELS, fit_trace, model_curve
+from catalog.core.kinetics import fit_trace
+from catalog.core.rate_laws import MODELS, model_curve
 
 NUMERIC = [c for c in COLUMNS if c not in ("model", "k_unit", "n_points")]
 

@@ -10,7 +10,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from support import synthetic_trace
 
-from catalog.core.kinetics import MODELS, TraceFit, fit_trace, model_curve
+from catalog.core.kinetics import fit_trace
+from catalog.core.rate_laws import MODELS, TraceFit, model_curve
 
 
 @pytest.mark.parametrize("order,kappa", [("zero", 1.6), ("first", 4.0), ("second", 12.0)])

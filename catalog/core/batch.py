@@ -5,7 +5,7 @@ Traces come long-form (one row per point, sorted by trial then time) and are pad
 drops out of all sums. For each model the inner linear least squares in (a, r0) is closed form from per-trial sums,
 and the one nonlinear parameter is found without a per-trial loop:
 
-- first and second order: the profile RSS(kappa) on :data:`catalog.core.kinetics.CURVATURE_GRID`, then safeguarded
+- first and second order: the profile RSS(kappa) on :data:`catalog.core.rate_laws.CURVATURE_GRID`, then safeguarded
   Newton on the profile derivative inside the grid cell that holds the minimum. By the envelope theorem and the
   derivative of the normal equations G^T r = 0 (G = [1, g]),
 
@@ -29,7 +29,8 @@ import numpy as np
 import pandas as pd
 
 from catalog.core import trace_shape
-from catalog.core.kinetics import (
+from catalog.core.plateau_fit import FULL_GRID, fit_full_batch, profile_rss
+from catalog.core.rate_laws import (
     CHANGE_POINT_PENALTY,
     CODES,
     CURVATURE_GRID,
@@ -48,7 +49,6 @@ from catalog.core.kinetics import (
     normalise,
     shape,
 )
-from catalog.core.plateau_fit import FULL_GRID, fit_full_batch, profile_rss
 from catalog.core.selection import summarise
 
 __all__ = ["COLUMNS", "curve_values", "fit_traces"]

@@ -10,7 +10,7 @@ leave one nonlinear parameter and at most one linear one. At low conversion (a f
 cannot tell curvature from noise, so their r0 is poorly determined or biased; holding the plateau at n_max fixes
 the curvature from the charge. In normalised units (u = t/t_max, y = (P - c)/s, m = n_max/s, kappa = k t_max or
 b t_max) the model is y = alpha + m h(u; kappa) with h = kappa g(u; kappa), so rho = m kappa and the fit packs into
-the (alpha, rho, theta) layout of :class:`catalog.core.kinetics.ModelFit` with
+the (alpha, rho, theta) layout of :class:`catalog.core.rate_laws.ModelFit` with
 
 .. math:: \operatorname{cov}(\alpha, \rho, \theta) = A\,C\,A^T,\quad
           A = \begin{pmatrix}1 & 0\\ 0 & m\\ 0 & 1\end{pmatrix},\quad C = s^2 (J^T J)^{-1},\quad
@@ -27,7 +27,7 @@ from __future__ import annotations
 import numpy as np
 from scipy.optimize import minimize_scalar
 
-from catalog.core.kinetics import CURVATURE_MAX, ModelFit, covariance, curvature_basis
+from catalog.core.rate_laws import CURVATURE_MAX, ModelFit, covariance, curvature_basis
 
 __all__ = ["FULL_GRID", "fit_full", "fit_full_batch", "profile_rss"]
 

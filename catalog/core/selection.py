@@ -1,7 +1,7 @@
 r"""Model choice and every reported field of a trace fit, shared by the reference and the vectorised paths.
 
-Each fitting core returns candidate fits (:class:`catalog.core.kinetics.ModelFit`) in normalised units; this module
-turns them into the reported fields of :class:`catalog.core.kinetics.TraceFit`:
+Each fitting core returns candidate fits (:class:`catalog.core.rate_laws.ModelFit`) in normalised units; this module
+turns them into the reported fields of :class:`catalog.core.rate_laws.TraceFit`:
 
 1. **Plateau above the stoichiometric maximum.** A candidate whose plateau exceeds n_max by more than
    z_{0.975} standard errors is rejected: no rate law can make more product than the charge allows.
@@ -31,7 +31,7 @@ import math
 
 import numpy as np
 
-from catalog.core.kinetics import (
+from catalog.core.rate_laws import (
     CODES,
     K_UNITS,
     MODELS,
