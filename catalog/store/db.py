@@ -30,6 +30,11 @@ LOCK_WAIT_S = 10.0
 OFFLINE = {"autoinstall_known_extensions": False, "autoload_known_extensions": False}
 
 
+#: Memory a scratch (staging) database may use before spilling to disk; DuckDB's own accounting, so the process
+#: adds its Python and library footprint on top.
+SCRATCH_MEMORY = "256MB"
+
+
 #: Names DuckDB opens as something other than a local file (in-memory, remote, extension-backed databases).
 #: (A one-letter prefix is a Windows drive, and stays a file.)
 _NOT_A_FILE = re.compile(r"^(:|[a-z][a-z0-9+.-]+:)", re.IGNORECASE)
@@ -123,11 +128,30 @@ def connect(db: str | os.PathLike | None = None, *, read_only: bool = False, wai
         con.close()
 
 
-def open_duckdb(database: str = ":memory:", read_only: bool = False) -> duckdb.DuckDBPyConnection:
-    """A DuckDB connection with the store's settings: no extension downloads, no progress bar on the terminal."""
-    con = duckdb.connect(database, read_only=read_only, config=OFFLINE)
+def open_duckdb(database: str = ":memory:", read_only: bool = False, **settings: str) -> duckdb.DuckDBPyConnection:
+    """A DuckDB connection with the store's settings: no extension downloads, no progress bar on the terminal.
+
+    ``settings`` are further DuckDB configuration options (e.g. ``memory_limit``, ``temp_directory``).
+    """
+    con = duckdb.connect(database, read_only=read_only, config={**OFFLINE, **settings})
     con.execute("SET enable_progress_bar = false")  # a session setting: DuckDB refuses it in the connect config
     return con
+
+
+@contextlib.contextmanager
+def scratch_database(memory_limit: str = SCRATCH_MEMORY) -> Iterator[duckdb.DuckDBPyConnection]:
+    """An in-memory DuckDB database that spills to a private temporary folder beyond ``memory_limit``.
+
+    Without a limit DuckDB holds everything staged in memory, so an import's peak grew with the campaign
+    (10^5 trials x 200 points: 2.4 GB resident); with it, the peak is bounded and the rest goes to disk.
+    The folder is removed on the way out, whatever happened.
+    """
+    with tempfile.TemporaryDirectory(prefix="catalog-scratch-") as folder:
+        con = open_duckdb(memory_limit=memory_limit, temp_directory=folder)
+        try:
+            yield con
+        finally:
+            con.close()
 
 
 def _open(path: Path, read_only: bool, wait: float) -> duckdb.DuckDBPyConnection:

@@ -24,8 +24,8 @@ from catalog.store.db import (
     holder,
     is_lock_error,
     now,
-    open_duckdb,
     resolve_path,
+    scratch_database,
     transaction,
     user,
 )
@@ -91,8 +91,7 @@ def import_campaign(
     problems += conflict
     overlap = [t for t in trials.frame["trial_id"].dropna() if t in stored_ids]
 
-    stage = open_duckdb()
-    try:
+    with scratch_database() as stage:
         say("reading trace points")
         trace_problems, trace_notes = stage_traces(stage, source, trials.frame)
         problems += trace_problems
@@ -126,8 +125,6 @@ def import_campaign(
         say(f"writing {len(new_catalysts)} catalysts, {len(new_trial_frame)} trials, {n_points} points")
         import_id = _write(stage, path, source, new_catalysts, new_trial_frame, n_points,
                            len(skipped_catalysts) + len(skipped_trials), demo, who or user(), notes)
-    finally:
-        stage.close()
     return ImportReport(import_id, len(new_catalysts), len(new_trial_frame), int(n_points),
                         skipped_catalysts, skipped_trials, notes)
 
