@@ -319,3 +319,27 @@ def test_points_are_stored_in_file_order(tmp_path):
     written = pd.read_csv(tmp_path / "bulk" / "traces.csv")
     assert (stored["trial_id"].to_numpy() == written.iloc[:, 0].str.strip().to_numpy()).all()
     assert np.array_equal(stored["t"].to_numpy(), written.iloc[:, 1].to_numpy(float))
+
+
+def test_import_beyond_the_staging_memory_spills_keeps_file_order_and_cleans_up(tmp_path, monkeypatch):
+    """A campaign larger than the staging memory limit spills to a private folder, removed afterwards."""
+    import functools
+    import tempfile
+
+    from catalog.store import db as store_db
+    from catalog.store import importer
+
+    scratch = tmp_path / "scratch"
+    scratch.mkdir()
+    monkeypatch.setattr(tempfile, "tempdir", str(scratch))
+    monkeypatch.setattr(importer, "scratch_database", functools.partial(store_db.scratch_database, "48MB"))
+    bulk.write_bulk_campaign(tmp_path / "bulk", n_trials=3000, n_points=200, seed=2)
+    db = tmp_path / "x.duckdb"
+    report = store.import_campaign(db, read_source(tmp_path / "bulk"))
+    assert report.n_points == 3000 * 200
+    con = duckdb.connect(str(db), read_only=True)
+    stored = con.execute("SELECT trial_id FROM trace_points").df()  # storage order: no ORDER BY
+    con.close()
+    written = pd.read_csv(tmp_path / "bulk" / "traces.csv")
+    assert (stored["trial_id"].to_numpy() == written.iloc[:, 0].str.strip().to_numpy()).all()
+    assert list(scratch.iterdir()) == []

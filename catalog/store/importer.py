@@ -211,8 +211,8 @@ def _write(stage, path: Path, source: CampaignSource, catalysts: pd.DataFrame, t
     except duckdb.ConstraintException as exc:
         raise CatalogError(f"{path}: another import wrote some of these ids meanwhile; nothing was written "
                            f"({first_line(exc)})") from exc
-    except (duckdb.IOException, duckdb.TransactionException) as exc:
-        # A full disk, a folder that turned read-only: the transaction was rolled back.
+    except (duckdb.IOException, duckdb.TransactionException, duckdb.OutOfMemoryException) as exc:
+        # A full disk (the store's or the staging spill folder's), a folder that turned read-only: rolled back.
         raise CatalogError(f"{path}: cannot be written ({first_line(exc)}); nothing was written") from exc
     finally:
         stage.execute("DETACH store")
