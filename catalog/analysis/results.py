@@ -69,42 +69,21 @@ def run_key(settings: Settings, stamp: str) -> str:
 
 def get_results(db: str | os.PathLike | None, settings: Settings,
                 progress: Callable[[str], None] | None = None) -> Results:
-    """Results for the campaign in ``db`` under ``settings``, from the cache when it is current."""
+    """Results for the campaign in ``db`` under ``settings``, from the cache when it is current.
+
+    Every read (fingerprint, cached run, or on a cold run the records, cached fits and point blocks) shares one
+    read-only connection; a cold run opens the file once more, to store what it computed. Holding the file for the
+    reads also keeps writers out between the fingerprint and the points, so a run is never stored under a stamp
+    its data did not have.
+    """
     say = progress or (lambda message: None)
-    stamp = store.data_stamp(db)
-    key = run_key(settings, stamp)
-    cached = store.load_run(db, key)
-    if cached is None:
-        return _compute(db, settings, key, stamp, say)
-    return _results(cached, settings, key, stamp, computed=False, stored=True)
-
-
-def _results(frames: dict, settings: Settings, key: str, stamp: str, computed: bool, stored: bool) -> Results:
-    """Results from a run in the layout of :func:`catalog.store.load_run`, whether read back or built in memory."""
-    run = frames["run"]
-    blank = {} if pd.isna(run.get("blank_ea")) else {
-        k: run[f"blank_{k}"] for k in _BLANK_FIELDS} | {"n": run["blank_n"]}
-    trials = frames["trial_results"].set_index("trial_id").sort_index()
-    catalysts = frames["catalyst_results"].set_index("catalyst_id").sort_index()
-    return Results(trials, catalysts, frames["flags"], blank, settings, key, stamp, computed, stored)
-
-
-def _compute(db, settings: Settings, key: str, stamp: str, say: Callable[[str], None]) -> Results:
-    """Fit what is not cached, derive every figure, run the diagnostics, store the run and return it."""
-    # Deferred: the pipeline pulls in scipy's optimisers (~0.3 s of imports), needed only here.
-    from catalog.analysis import diagnostics
-    from catalog.analysis.pipeline import analyse
-
-    say("loading trials")
-    catalysts, trials = store.load_records(db)
-    # Missing inputs give NaN figures by design (empty cells, never made-up numbers); numpy's warnings about
-    # them are noise to a user.
-    with np.errstate(all="ignore"):
-        fits = _fit_missing(db, trials.set_index("trial_id"), store.load_fits(db, FIT_VERSION), say)
-        no_points = pd.DataFrame({"trial_id": pd.Series(dtype=object), "t": [], "value": []})
-        result = analyse(catalysts, trials, no_points, settings, fits=fits)
-        say("running diagnostics")
-        flags = diagnostics.evaluate(result, settings)
+    with store.session(db) as con:
+        stamp = store.data_stamp(con)
+        key = run_key(settings, stamp)
+        cached = store.load_run(con, key)
+        if cached is not None:
+            return _results(cached, settings, key, stamp, computed=False, stored=True)
+        result, flags = _compute(con, settings, say)
     trial_table = _with_codes(result.trials, flags, "trial")
     catalyst_table = _with_codes(result.catalysts, flags, "catalyst")
     fit = result.blank
@@ -121,19 +100,48 @@ def _compute(db, settings: Settings, key: str, stamp: str, say: Callable[[str], 
                     computed=True, stored=stored)
 
 
-def _fit_missing(db, trials: pd.DataFrame, cached: pd.DataFrame, say: Callable[[str], None]) -> pd.DataFrame:
+def _results(frames: dict, settings: Settings, key: str, stamp: str, computed: bool, stored: bool) -> Results:
+    """Results from a run in the layout of :func:`catalog.store.load_run`, whether read back or built in memory."""
+    run = frames["run"]
+    blank = {} if pd.isna(run.get("blank_ea")) else {
+        k: run[f"blank_{k}"] for k in _BLANK_FIELDS} | {"n": run["blank_n"]}
+    trials = frames["trial_results"].set_index("trial_id").sort_index()
+    catalysts = frames["catalyst_results"].set_index("catalyst_id").sort_index()
+    return Results(trials, catalysts, frames["flags"], blank, settings, key, stamp, computed, stored)
+
+
+def _compute(con, settings: Settings, say: Callable[[str], None]):
+    """Fit what is not cached, derive every figure and run the diagnostics: (analysis result, flags)."""
+    # Deferred: the pipeline pulls in scipy's optimisers (~0.3 s of imports), needed only here.
+    from catalog.analysis import diagnostics
+    from catalog.analysis.pipeline import analyse
+
+    say("loading trials")
+    catalysts, trials = store.load_records(con)
+    # Missing inputs give NaN figures by design (empty cells, never made-up numbers); numpy's warnings about
+    # them are noise to a user.
+    with np.errstate(all="ignore"):
+        fits = _fit_missing(con, trials.set_index("trial_id"), store.load_fits(con, FIT_VERSION), say)
+        no_points = pd.DataFrame({"trial_id": pd.Series(dtype=object), "t": [], "value": []})
+        result = analyse(catalysts, trials, no_points, settings, fits=fits)
+        say("running diagnostics")
+        flags = diagnostics.evaluate(result, settings)
+    return result, flags
+
+
+def _fit_missing(con, trials: pd.DataFrame, cached: pd.DataFrame, say: Callable[[str], None]) -> pd.DataFrame:
     """Kinetic fits for every trial: cached ones reused, the rest fitted a block of trace points at a time."""
     from catalog.analysis.per_trial import fit_all  # deferred with the pipeline (see _compute)
 
     todo = trials.index.difference(cached.index)
     say(f"fitting {len(todo)} trace(s), reusing {len(trials) - len(todo)} cached fit(s)")
     fresh, done = [], 0
-    blocks = store.point_blocks(db, todo, FIT_BLOCK_POINTS)
+    blocks = store.point_blocks(con, todo, FIT_BLOCK_POINTS)
     for block in blocks:
         # Separate messages for the read and the fits: on a large campaign the user (and the benchmark) sees which.
         part = f" of trials {done + 1}-{done + len(block)} of {len(todo)}" if len(blocks) > 1 else ""
         say(f"  reading the trace points{part}")
-        points = store.load_points(db, block)
+        points = store.load_points(con, block)
         say(f"  fitting the rate laws{part}")
         fresh.append(fit_all(trials.loc[block], points))
         done += len(block)

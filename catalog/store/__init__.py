@@ -15,7 +15,7 @@ Callers use the names below, ``from catalog import store; store.import_campaign(
 from catalog.store.backup import BACKUP_MANIFEST, backup, restore
 from catalog.store.cache import load_fits, load_run, run_frames, save_run
 from catalog.store.corrections import PURGED, Change, correct, exclude, history, include, purge, purge_import
-from catalog.store.db import DEFAULT_DB, ENV_DB, connect, resolve_path
+from catalog.store.db import DEFAULT_DB, ENV_DB, connect, resolve_path, session
 from catalog.store.importer import ImportReport, import_campaign
 from catalog.store.queries import (
     data_stamp,
@@ -34,5 +34,5 @@ __all__ = [
     "BACKUP_MANIFEST", "DEFAULT_DB", "ENV_DB", "PURGED", "Change", "ImportReport", "backup", "connect", "correct",
     "data_stamp", "exclude", "history", "import_campaign", "include", "list_catalysts", "list_imports", "list_trials",
     "load_campaign", "load_fits", "load_points", "load_records", "load_run", "load_trace", "point_blocks", "purge",
-    "purge_import", "resolve_path", "restore", "run_frames", "save_run", "table_counts",
+    "purge_import", "resolve_path", "restore", "run_frames", "save_run", "session", "table_counts",
 ]

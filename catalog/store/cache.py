@@ -10,7 +10,7 @@ import os
 
 import pandas as pd
 
-from catalog.store.db import ReadOnlyDatabase, connect, now, transaction
+from catalog.store.db import ReadOnlyDatabase, Store, connect, now, session, transaction
 from catalog.store.schema import TRIAL_FIELDS, TRIAL_FIT, TRIAL_RESULT, SchemaMismatch, cache_columns
 
 #: Tables holding one run's rows, keyed by run_key.
@@ -38,9 +38,9 @@ def _insert_frame(con, table: str, frame: pd.DataFrame) -> None:
     con.unregister("cache_rows")
 
 
-def load_fits(db: str | os.PathLike | None, fit_version: str) -> pd.DataFrame:
+def load_fits(db: Store, fit_version: str) -> pd.DataFrame:
     """Cached kinetic fits made by this fit version, indexed by trial_id."""
-    with connect(db, read_only=True) as con:
+    with session(db) as con:
         fits = con.execute("SELECT * EXCLUDE (fit_version) FROM trial_fits WHERE fit_version = ?", [fit_version]).df()
     return fits.set_index("trial_id")
 
@@ -106,9 +106,9 @@ def run_frames(blank: dict, trial_results: pd.DataFrame, catalyst_results: pd.Da
             "flags": flags.reset_index(drop=True)}
 
 
-def load_run(db: str | os.PathLike | None, run_key: str) -> dict | None:
+def load_run(db: Store, run_key: str) -> dict | None:
     """A stored analysis run: its blank summary and the three result tables; None when not cached."""
-    with connect(db, read_only=True) as con:
+    with session(db) as con:
         run = con.execute("SELECT * FROM analysis_runs WHERE run_key = ?", [run_key]).df()
         if run.empty:
             return None

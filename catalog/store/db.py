@@ -1,8 +1,9 @@
 """Where the store lives and how it is opened: path, connection, lock waits, transactions, migrations.
 
 DuckDB lets one process write a file at a time, and while a writer holds it other processes cannot open it, so
-every store function opens the file, does its work and closes it again; a lock is retried briefly and then
-reported as :class:`~catalog.errors.DatabaseBusyError`.
+every store function opens the file, does its work and closes it again (or works on a connection its caller
+opened for a whole command, see :func:`session`); a lock is retried briefly and then reported as
+:class:`~catalog.errors.DatabaseBusyError`.
 """
 
 from __future__ import annotations
@@ -34,6 +35,9 @@ OFFLINE = {"autoinstall_known_extensions": False, "autoload_known_extensions": F
 #: adds its Python and library footprint on top.
 SCRATCH_MEMORY = "256MB"
 
+
+#: What a store function reads from: a database path (None: the default) or a connection already open on one.
+Store = str | os.PathLike | duckdb.DuckDBPyConnection | None
 
 #: Names DuckDB opens as something other than a local file (in-memory, remote, extension-backed databases).
 #: (A one-letter prefix is a Windows drive, and stays a file.)
@@ -126,6 +130,20 @@ def connect(db: str | os.PathLike | None = None, *, read_only: bool = False, wai
         raise
     finally:
         con.close()
+
+
+@contextlib.contextmanager
+def session(db: Store = None, *, read_only: bool = True) -> Iterator[duckdb.DuckDBPyConnection]:
+    """A connection for one block: ``db`` itself when it is already open, else the store at ``db`` opened for it.
+
+    Store functions take either, so a command opens the file once and passes the connection to every read it
+    makes (each open costs ~20 ms: the file, its catalog and the schema check), and a lone call still just works.
+    """
+    if isinstance(db, duckdb.DuckDBPyConnection):
+        yield db
+        return
+    with connect(db, read_only=read_only) as con:
+        yield con
 
 
 def open_duckdb(database: str = ":memory:", read_only: bool = False, **settings: str) -> duckdb.DuckDBPyConnection:

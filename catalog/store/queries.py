@@ -3,17 +3,16 @@
 from __future__ import annotations
 
 import hashlib
-import os
 
 import pandas as pd
 
-from catalog.store.db import connect
+from catalog.store.db import Store, session
 from catalog.store.schema import CATALYST_FIELDS, TRIAL_FIELDS
 
 
-def list_trials(db: str | os.PathLike | None = None, include_excluded: bool = True) -> pd.DataFrame:
+def list_trials(db: Store = None, include_excluded: bool = True) -> pd.DataFrame:
     """One row per trial with its catalyst, conditions (SI), point count and time span."""
-    with connect(db, read_only=True) as con:
+    with session(db) as con:
         return con.execute(
             """
             SELECT t.trial_id, t.catalyst_id, t.temperature, t.measurement, t.signal_unit, t.catalyst_mass,
@@ -28,22 +27,22 @@ def list_trials(db: str | os.PathLike | None = None, include_excluded: bool = Tr
         ).df()
 
 
-def list_imports(db: str | os.PathLike | None = None) -> pd.DataFrame:
+def list_imports(db: Store = None) -> pd.DataFrame:
     """Provenance of every import, newest last."""
-    with connect(db, read_only=True) as con:
+    with session(db) as con:
         return con.execute("SELECT * FROM imports ORDER BY import_id").df()
 
 
-def table_counts(db: str | os.PathLike | None = None) -> dict[str, int]:
+def table_counts(db: Store = None) -> dict[str, int]:
     """Row counts of the campaign tables."""
-    with connect(db, read_only=True) as con:
+    with session(db) as con:
         return {
             name: con.execute(f"SELECT count(*) FROM {name}").fetchone()[0]
             for name in ("imports", "catalysts", "trials", "trace_points")
         }
 
 
-def data_stamp(db: str | os.PathLike | None = None) -> str:
+def data_stamp(db: Store = None) -> str:
     """A fingerprint of the campaign's content: changes with every import, correction, exclusion or purge.
 
     Content, not bookkeeping: each row of catalysts, trials and trace points is hashed and the hashes summed, one
@@ -51,7 +50,7 @@ def data_stamp(db: str | os.PathLike | None = None) -> str:
     store's back (a tampered backup restored, an edit with another tool) gets a new stamp and never serves stale
     cached figures. The sum ignores row order, which does not change any figure.
     """
-    with connect(db, read_only=True) as con:
+    with session(db) as con:
         row = con.execute(
             """
             SELECT (SELECT count(*) FROM catalysts), (SELECT count(*) FROM trials),
@@ -64,9 +63,9 @@ def data_stamp(db: str | os.PathLike | None = None) -> str:
     return "c{}-t{}-p{}-{}".format(*row[:3], digest)
 
 
-def load_records(db: str | os.PathLike | None = None) -> tuple[pd.DataFrame, pd.DataFrame]:
+def load_records(db: Store = None) -> tuple[pd.DataFrame, pd.DataFrame]:
     """Catalysts and trials in SI, without excluded records (a trial of an excluded catalyst is left out too)."""
-    with connect(db, read_only=True) as con:
+    with session(db) as con:
         catalysts = con.execute(
             f"SELECT {', '.join(CATALYST_FIELDS)} FROM catalysts WHERE NOT excluded ORDER BY catalyst_id").df()
         trials = con.execute(
@@ -77,12 +76,12 @@ def load_records(db: str | os.PathLike | None = None) -> tuple[pd.DataFrame, pd.
     return catalysts, trials
 
 
-def load_points(db: str | os.PathLike | None, trial_ids=None) -> pd.DataFrame:
+def load_points(db: Store, trial_ids=None) -> pd.DataFrame:
     """Trace points ``trial_id, t, value`` (SI) of the given trials, or of every included trial; sorted by trial, t.
 
     Reading a campaign's points a block of trials at a time keeps the memory of a 10^7-point analysis bounded.
     """
-    with connect(db, read_only=True) as con:
+    with session(db) as con:
         if trial_ids is None:
             return con.execute(
                 """SELECT p.trial_id, p.t, p.value FROM trace_points p
@@ -93,14 +92,14 @@ def load_points(db: str | os.PathLike | None, trial_ids=None) -> pd.DataFrame:
                ORDER BY p.trial_id, p.t""").df()
 
 
-def point_blocks(db: str | os.PathLike | None, trial_ids, max_points: int) -> list[list[str]]:
+def point_blocks(db: Store, trial_ids, max_points: int) -> list[list[str]]:
     """The given trials, in the order given, cut into blocks of at most ``max_points`` trace points.
 
     A trial with more points than that is a block of its own. Reading and fitting one block at a time bounds the
     memory of an analysis by points, whatever the number of trials (10^7 points in 100 trials or in 10^5).
     """
     wanted = pd.DataFrame({"trial_id": pd.Series(list(trial_ids), dtype=object)})
-    with connect(db, read_only=True) as con:
+    with session(db) as con:
         con.register("wanted", wanted)
         counts = dict(con.execute(
             "SELECT trial_id, count(*) FROM trace_points SEMI JOIN wanted USING (trial_id) GROUP BY trial_id"
@@ -117,20 +116,21 @@ def point_blocks(db: str | os.PathLike | None, trial_ids, max_points: int) -> li
     return blocks
 
 
-def load_campaign(db: str | os.PathLike | None = None) -> tuple[pd.DataFrame, pd.DataFrame, pd.DataFrame]:
+def load_campaign(db: Store = None) -> tuple[pd.DataFrame, pd.DataFrame, pd.DataFrame]:
     """Catalysts, trials and trace points in SI, without excluded records (points sorted by trial and time)."""
-    catalysts, trials = load_records(db)
-    return catalysts, trials, load_points(db)
+    with session(db) as con:
+        catalysts, trials = load_records(con)
+        return catalysts, trials, load_points(con)
 
 
-def load_trace(db: str | os.PathLike | None, trial_id: str) -> pd.DataFrame:
+def load_trace(db: Store, trial_id: str) -> pd.DataFrame:
     """One trial's points (t, value) in SI."""
-    with connect(db, read_only=True) as con:
+    with session(db) as con:
         return con.execute("SELECT t, value FROM trace_points WHERE trial_id = ? ORDER BY t", [trial_id]).df()
 
-def list_catalysts(db: str | os.PathLike | None = None, include_excluded: bool = False) -> pd.DataFrame:
+def list_catalysts(db: Store = None, include_excluded: bool = False) -> pd.DataFrame:
     """The catalyst registry (SI), with each catalyst's number of trials; no trace points are read."""
-    with connect(db, read_only=True) as con:
+    with session(db) as con:
         return con.execute(
             f"""
             SELECT {', '.join('c.' + f for f in CATALYST_FIELDS)}, c.excluded, count(t.trial_id) AS n_trials
