@@ -36,3 +36,19 @@ def test_cold_results_from_memory_equal_the_cached_read(fresh_db, tmp_path):
     assert cold.blank.keys() == warm.blank.keys()
     assert all(cold.blank[k] == warm.blank[k] for k in cold.blank)
 
+
+
+def test_a_command_opens_the_database_once_to_read_and_once_to_store(fresh_db, tmp_path, monkeypatch):
+    """Warm: one open for the fingerprint and the cached run. Cold: one for every read, one to store the run."""
+    from catalog.store import db as store_db
+
+    db = tmp_path / "copy.duckdb"
+    shutil.copy(fresh_db, db)
+    opened = []
+    real_open = store_db._open
+    monkeypatch.setattr(store_db, "_open", lambda *args: opened.append(args[1]) or real_open(*args))
+    results.get_results(db, Settings())
+    assert opened == [True, False]  # read-only for the reads, writable to store
+    opened.clear()
+    results.get_results(db, Settings())
+    assert opened == [True]
