@@ -144,17 +144,26 @@ def _stage_typed(stage: duckdb.DuckDBPyConnection, source: CampaignSource, names
         "value AS value_num FROM raw"
     )
     cells = " OR ".join(f"({c})" for c, _, _ in _TRACE_FAULTS[:5])
-    # One streaming scan counts the bad cells and the times that do not increase. Lag over the rows as they come is
-    # far cheaper than a window per trial, and exact when they came in file order (checked: consecutive lines) and
-    # each trial's rows are contiguous (runs = trials); otherwise the window per trial decides.
-    shuffled, runs, n_trials, faults = stage.execute(
+    # One streaming scan marks the rows that matter: where a trial's run of rows starts, where the file order
+    # breaks, where a cell is bad or a time does not increase. Lag over the rows as they come is far cheaper than a
+    # window per trial, and exact when they came in file order (checked: consecutive lines) and each trial's rows
+    # are contiguous (runs = trials); otherwise the window per trial decides. The marks are few on a clean file (one
+    # per trial), so the counts and the id match below read them, not the points again.
+    stage.execute(
         f"""
-        SELECT count(*) FILTER (line <> previous_line + 1), count(*) FILTER (trial_id IS DISTINCT FROM previous_trial),
-               count(DISTINCT trial_id),
-               count(*) FILTER (({cells}) OR (trial_id = previous_trial AND time_num <= previous_time))
+        CREATE TEMP TABLE marks AS
+        SELECT trial_id, line <> previous_line + 1 AS shuffled, trial_id IS DISTINCT FROM previous_trial AS starts,
+               ({cells}) OR (trial_id = previous_trial AND time_num <= previous_time) AS faulty
         FROM (SELECT *, lag(line) OVER () AS previous_line, lag(trial_id) OVER () AS previous_trial,
                      lag(time_num) OVER () AS previous_time FROM typed)
+        WHERE line <> previous_line + 1 OR trial_id IS DISTINCT FROM previous_trial
+              OR ({cells}) OR (trial_id = previous_trial AND time_num <= previous_time)
         """
+    )
+    # Every trial id in the file starts a run at its first row, so the distinct ids of the run starts are all of them.
+    shuffled, runs, n_trials, faults = stage.execute(
+        "SELECT count(*) FILTER (shuffled), count(*) FILTER (starts), count(DISTINCT trial_id) FILTER (starts), "
+        "count(*) FILTER (faulty) FROM marks"
     ).fetchone()
     if not faults and (shuffled or runs != n_trials):
         faults = stage.execute(f"SELECT count(*) FROM ({_NOT_INCREASING})").fetchone()[0]
@@ -162,9 +171,10 @@ def _stage_typed(stage: duckdb.DuckDBPyConnection, source: CampaignSource, names
         # Ids are matched once each, not once per row: every id in the file is a trial and every trial has points.
         matched, expected = stage.execute(
             "SELECT count(*), (SELECT count(*) FROM factors) FROM factors "
-            "WHERE trial_id IN (SELECT DISTINCT trial_id FROM typed)"
+            "WHERE trial_id IN (SELECT trial_id FROM marks WHERE starts)"
         ).fetchone()
         faults = matched != n_trials or matched != expected
+    stage.execute("DROP TABLE marks")
     if faults:
         stage.execute("DROP VIEW typed")
         stage.execute("DROP TABLE raw")
