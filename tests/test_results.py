@@ -39,7 +39,7 @@ def test_cold_results_from_memory_equal_the_cached_read(fresh_db, tmp_path):
 
 
 def test_a_command_opens_the_database_once_to_read_and_once_to_store(fresh_db, tmp_path, monkeypatch):
-    """Warm: one open for the fingerprint and the cached run. Cold: one for every read, one to store the run."""
+    """Warm: one open for the fingerprint and the cached run. Cold: that one, one per block of points, one to store."""
     from catalog.store import db as store_db
 
     db = tmp_path / "copy.duckdb"
@@ -48,7 +48,7 @@ def test_a_command_opens_the_database_once_to_read_and_once_to_store(fresh_db, t
     real_open = store_db._open
     monkeypatch.setattr(store_db, "_open", lambda *args: opened.append(args[1]) or real_open(*args))
     results.get_results(db, Settings())
-    assert opened == [True, False]  # read-only for the reads, writable to store
+    assert opened == [True, True, False]  # the reads, the one block of points, then the write
     opened.clear()
     results.get_results(db, Settings())
     assert opened == [True]
