@@ -343,3 +343,21 @@ def test_import_beyond_the_staging_memory_spills_keeps_file_order_and_cleans_up(
     written = pd.read_csv(tmp_path / "bulk" / "traces.csv")
     assert (stored["trial_id"].to_numpy() == written.iloc[:, 0].str.strip().to_numpy()).all()
     assert list(scratch.iterdir()) == []
+
+
+def test_a_killed_import_s_spill_folder_is_removed_by_the_next_one(tmp_path, monkeypatch):
+    """Spill folders carry their process id; one whose process is gone is removed, a live one is kept."""
+    import os
+    import tempfile
+
+    from catalog.store import db as store_db
+
+    monkeypatch.setattr(tempfile, "tempdir", str(tmp_path))
+    dead = tmp_path / f"catalog-scratch-{2**22 + 12345}-abc"  # above Linux's largest process id: never alive
+    live = tmp_path / f"catalog-scratch-{os.getpid()}-def"
+    for folder in (dead, live):
+        folder.mkdir()
+        (folder / "spill.tmp").write_bytes(b"x")
+    with store_db.scratch_database() as con:
+        assert con.execute("SELECT 1").fetchall() == [(1,)]
+    assert not dead.exists() and live.exists()

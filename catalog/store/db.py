@@ -12,6 +12,7 @@ import contextlib
 import getpass
 import os
 import re
+import shutil
 import tempfile
 import time
 from collections.abc import Iterator
@@ -46,6 +47,8 @@ _NOT_A_FILE = re.compile(r"^(:|[a-z][a-z0-9+.-]+:)", re.IGNORECASE)
 _READ_ONLY_WORDS = ("permission denied", "operation not permitted", "read-only file system")
 #: Characters DuckDB's file readers take as a glob pattern.
 _GLOB = re.compile(r"[*?\[\]{}]")
+#: Prefix of a scratch database's spill folder in the temporary folder, followed by the process id.
+_SCRATCH = "catalog-scratch-"
 #: Suffix of the side file a restore builds (with its process id), removed when that process is gone.
 RESTORING = ".restoring-"
 
@@ -162,14 +165,24 @@ def scratch_database(memory_limit: str = SCRATCH_MEMORY) -> Iterator[duckdb.Duck
 
     Without a limit DuckDB holds everything staged in memory, so an import's peak grew with the campaign
     (10^5 trials x 200 points: 2.4 GB resident); with it, the peak is bounded and the rest goes to disk.
-    The folder is removed on the way out, whatever happened.
+    The folder is removed on the way out, whatever happened; the folders of killed processes (named with their
+    process id) are removed by the next scratch database, so no spilled data lingers on disk.
     """
-    with tempfile.TemporaryDirectory(prefix="catalog-scratch-") as folder:
+    _remove_stale_scratch()
+    with tempfile.TemporaryDirectory(prefix=f"{_SCRATCH}{os.getpid()}-") as folder:
         con = open_duckdb(memory_limit=memory_limit, temp_directory=folder)
         try:
             yield con
         finally:
             con.close()
+
+
+def _remove_stale_scratch() -> None:
+    root = Path(tempfile.gettempdir())
+    for folder in root.glob(f"{_SCRATCH}*-*"):
+        pid = folder.name[len(_SCRATCH):].split("-", 1)[0]
+        if pid.isdigit() and not _alive(int(pid)):
+            shutil.rmtree(folder, ignore_errors=True)
 
 
 def _open(path: Path, read_only: bool, wait: float) -> duckdb.DuckDBPyConnection:
