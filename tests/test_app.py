@@ -261,6 +261,7 @@ def _markdown_texts(at: AppTest) -> list[str]:
     return [e.value for kind in kinds for e in at.get(kind)]
 
 
+@pytest.mark.slow
 def test_user_text_never_renders_as_markdown(db):
     at = open_page("import_page")
     rows = "".join(f"H{i},{60 * i},{20 * (1 - 0.8 ** i):.3f}\n" for i in range(1, 20)).replace("H", "")
