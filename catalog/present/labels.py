@@ -40,13 +40,6 @@ FIGURES: dict[str, tuple[str, str, str | None]] = {
     "score": ("weighted score", "score", None),
 }
 
-_MEASUREMENTS = {
-    "gas_volume": "gas volume",
-    "mass_loss": "mass loss",
-    "pressure": "headspace pressure",
-    "concentration": "analyser concentration",
-}
-
 # Settings field → (plain words, display unit or None, "%" to show a fraction as a percentage).
 _SETTINGS = {
     "reference_temperature": ("reference temperature for comparing catalysts", "degC"),
@@ -74,8 +67,12 @@ def figure_name(key: str, short: bool = False, currency: str | None = None) -> s
 
 
 def measurement_words(kind: str) -> str:
-    """A measurement kind in plain words: 'gas_volume' → 'gas volume', 'pressure' → 'headspace pressure'."""
-    return _MEASUREMENTS.get(kind, str(kind).replace("_", " "))
+    """A measurement kind in plain words, the registry label without its detail: 'gas_volume' → 'gas volume',
+    'pressure' → 'headspace pressure' (the kind itself, spaced, when the registry does not know it)."""
+    from catalog.core.measurements import MEASUREMENTS  # deferred: its converters load periodictable
+
+    known = MEASUREMENTS.get(kind)
+    return known.label.split(" (")[0] if known else str(kind).replace("_", " ")
 
 
 def flag_title(code: str) -> str:
