@@ -278,7 +278,7 @@ def cmd_report(args: argparse.Namespace) -> int:
 
     found, ranked = _ranked(args)
     path = report.write_report(args.db, args.out, found.settings, ranked=ranked, top_k=args.top, metric=args.metric,
-                               currency=args.currency)
+                               currency=args.currency, results=found)
     print(f"report written to {path} (self-contained; opens offline)")
     return 0
 

@@ -348,7 +348,7 @@ def render_report(results: Results, ranked: pd.DataFrame, top_k: int, points: pd
 
 def write_report(db: str | os.PathLike | None, path: str | os.PathLike, settings: Settings,
                  ranked: pd.DataFrame | None = None, top_k: int = 3, metric: str = "tof",
-                 currency: str | None = None) -> Path:
+                 currency: str | None = None, results: Results | None = None) -> Path:
     """Analyse (or read the cached analysis of) the campaign in ``db`` and write the report to ``path``.
 
     The page is written to a temporary file in the same folder and renamed into place, so a full disk or a crash
@@ -361,6 +361,7 @@ def write_report(db: str | os.PathLike | None, path: str | os.PathLike, settings
     path : str or PathLike
         Output ``.html`` file.
     settings : Settings
+        Used when ``results`` is not given.
     ranked : DataFrame, optional
         A ranking already made (e.g. with the user's weights and exclusions); by default
         ``ranking.rank`` on ``metric`` with its Pareto column on :func:`catalog.present.tradeoff.trade_off_axes`.
@@ -370,6 +371,9 @@ def write_report(db: str | os.PathLike | None, path: str | os.PathLike, settings
         Ranking metric when ``ranked`` is not given.
     currency : str, optional
         Shown for prices.
+    results : Results, optional
+        Figures the caller already holds (the CLI has them after ranking); read or computed here otherwise, so a
+        read-only database is not analysed twice.
 
     Returns
     -------
@@ -383,7 +387,7 @@ def write_report(db: str | os.PathLike | None, path: str | os.PathLike, settings
     path = Path(path)
     if path.suffix.lower() not in (".html", ".htm"):
         raise CatalogError(f"the report is an HTML page: '{path.name}' should end in .html")
-    results = get_results(db, settings)
+    results = results if results is not None else get_results(db, settings)
     if ranked is None:
         trade_off = None if metric == "score" else tradeoff.trade_off_axes(results.catalysts, metric)
         ranked = ranking.rank(results.catalysts, metric=metric, top_k=top_k, pareto_metrics=trade_off)
