@@ -172,7 +172,7 @@ def downloads(db: str, res: results.Results, ranked: pd.DataFrame, metric: str, 
         elif st.button("Prepare the HTML report", key="rank_report_make"):
             with st.spinner("Writing the report…"), tempfile.TemporaryDirectory() as tmp:
                 path = report.write_report(db, Path(tmp) / "report.html", res.settings, ranked=ranked, top_k=top_k,
-                                           metric=metric, currency=common.CURRENCY)
+                                           metric=metric, currency=common.CURRENCY, results=res)
                 st.session_state["rank_report"] = (key, path.read_bytes())
             st.rerun()
 
