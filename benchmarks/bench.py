@@ -273,6 +273,7 @@ def main(argv: list[str] | None = None) -> int:
               f"({made['blank_trials']:,} blanks), trace file {size / 2**20:,.0f} MiB in {work}")
 
         user = whole_processes(work)
+        (work / "raw.duckdb").unlink(missing_ok=True)  # a kept --workdir holds the last run's file
         raw = run(["-c", RAW_READ, str(work / "raw.duckdb"), str(work / CAMPAIGN / "traces.csv")])
         script = ({"error": "skipped"} if args.skip_baseline
                   else run([str(HERE / "curve_fit_per_trial.py"), str(work / CAMPAIGN), "--out", str(work / "r.csv")]))
