@@ -30,7 +30,7 @@ from catalog.store.db import (
     user,
 )
 from catalog.store.schema import CATALYST_FIELDS, TRIAL_FIELDS
-from catalog.store.staging import same_traces, stage_traces
+from catalog.store.staging import Staged, count_points, same_traces, stage_traces, write_points
 from catalog.store.values import same_value
 
 
@@ -93,7 +93,7 @@ def import_campaign(
 
     with scratch_database() as stage:
         say("reading trace points")
-        trace_problems, trace_notes = stage_traces(stage, source, trials.frame)
+        trace_problems, trace_notes, staged = stage_traces(stage, source, trials.frame, set(overlap))
         problems += trace_problems
         notes += trace_notes
         skipped_trials: list[str] = []
@@ -104,7 +104,7 @@ def import_campaign(
                     f"SELECT {', '.join(TRIAL_FIELDS)} FROM trials WHERE trial_id IN (SELECT * FROM unnest(?))",
                     [overlap],
                 ).df()
-                same_trace = same_traces(con, stage, overlap)
+                same_trace = same_traces(con, stage, staged, overlap)
             new_trial_frame, skipped_trials, conflict = _split_known(
                 trials.frame[TRIAL_FIELDS + ["signal_scale", "signal_shift"]], stored_trials, "trial_id",
                 source.trials.label, same_trace,
@@ -116,14 +116,9 @@ def import_campaign(
             raise ValidationError(problems)
 
         new_trial_frame = new_trial_frame.reset_index(drop=True)
-        stage.register("new_trials", pd.DataFrame({"trial_id": new_trial_frame["trial_id"]}))
-        # Without skipped trials every staged row is written: counting them needs no join.
-        n_points = stage.execute(
-            "SELECT count(*) FROM points WHERE trial_id IN (SELECT trial_id FROM new_trials)" if skipped_trials
-            else "SELECT count(*) FROM typed"
-        ).fetchone()[0]
+        n_points = count_points(stage, staged)
         say(f"writing {len(new_catalysts)} catalysts, {len(new_trial_frame)} trials, {n_points} points")
-        import_id = _write(stage, path, source, new_catalysts, new_trial_frame, n_points,
+        import_id = _write(stage, path, source, staged, new_catalysts, new_trial_frame, n_points,
                            len(skipped_catalysts) + len(skipped_trials), demo, who or user(), notes)
     return ImportReport(import_id, len(new_catalysts), len(new_trial_frame), int(n_points),
                         skipped_catalysts, skipped_trials, notes)
@@ -167,7 +162,7 @@ def _split_known(
     return incoming.loc[sorted(keep)], skipped, problems
 
 
-def _write(stage, path: Path, source: CampaignSource, catalysts: pd.DataFrame, trials: pd.DataFrame,
+def _write(stage, path: Path, source: CampaignSource, staged: Staged, catalysts: pd.DataFrame, trials: pd.DataFrame,
            n_points: int, n_skipped: int, demo: bool, who: str, notes: list[str]) -> int:
     """Write one import atomically into the store, attached to the staging connection."""
     with connect(path, create=True):
@@ -204,10 +199,7 @@ def _write(stage, path: Path, source: CampaignSource, catalysts: pd.DataFrame, t
                 f"SELECT {', '.join(TRIAL_FIELDS)}, ?, false FROM new_trial_rows",
                 [import_id],
             )
-            stage.execute(
-                "INSERT INTO store.trace_points SELECT trial_id, t, value FROM points "
-                "WHERE trial_id IN (SELECT trial_id FROM new_trial_rows) ORDER BY line"
-            )
+            write_points(stage, staged)
     except duckdb.ConstraintException as exc:
         raise CatalogError(f"{path}: another import wrote some of these ids meanwhile; nothing was written "
                            f"({first_line(exc)})") from exc

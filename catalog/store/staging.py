@@ -1,7 +1,12 @@
 """Trace points on their way in: staged in an in-memory DuckDB database, checked set-wise, located when faulty.
 
-A clean CSV file costs one typed read and one streaming check; only a file with a fault is read again as text, so
-that each fault is reported with its file, line, column and text as written.
+A clean CSV file costs one typed read, one streaming check and one streaming write; only a file with a fault is read
+again as text, so that each fault is reported with its file, line, column and text as written.
+
+The trial ids are read as an ENUM of this campaign's trials, ordered by how each trial's values reach SI (and with
+the trials already stored last), so the conversion is an expression over the id's code, ``value × scale + shift``
+with the scale and shift of the code's range, instead of a join: a join does not keep its input's order, and
+sorting the points back into file order was the largest cost of an import.
 """
 
 from __future__ import annotations
@@ -40,35 +45,71 @@ _NOT_INCREASING = """
 """
 
 
+@dataclasses.dataclass(frozen=True)
+class Staged:
+    """The staged points: the time scale to seconds, and the trial codes' ranges with their SI scale and shift.
+
+    ``ranges`` holds ``(end, scale, shift)``: codes below ``end`` (and not below the previous end) take that scale
+    and shift. Codes from ``written`` on are trials already stored, which the final write leaves out.
+    """
+
+    time_scale: float
+    ranges: tuple[tuple[int, float, float], ...]
+    written: int
+
+    def si_points(self, where: str = "true") -> tuple[str, list]:
+        """SQL (and its parameters) of the staged points ``line, trial_id, code, t, value`` in SI, in file order.
+
+        .. math:: t = t_\\mathrm{file}\\,s_t, \\qquad y = y_\\mathrm{file}\\,a_i + b_i
+
+        with :math:`a_i, b_i` the scale and shift of trial *i*'s signal unit. Projections and filters only, so the
+        rows keep the staged (file) order; ``where`` is a condition on ``code`` whose values are bound by the caller.
+        """
+        # One shape for the scale and the shift: the same code ranges, each with its own bound values.
+        by_code = "CASE " + " ".join("WHEN code < ? THEN ?" for _ in self.ranges) + " END"
+        sql = (f"SELECT line, trial_id, code, time_num * ? AS t, value_num * {by_code} + {by_code} AS value "
+               f"FROM typed WHERE {where}")
+        params = [self.time_scale]
+        params += [x for end, a, _ in self.ranges for x in (end, a)]
+        params += [x for end, _, b in self.ranges for x in (end, b)]
+        return sql, params
+
+
 def stage_traces(
-    stage: duckdb.DuckDBPyConnection, source: CampaignSource, trials: pd.DataFrame
-) -> tuple[list[Problem], list[str]]:
-    """Load the trace table into the staging database, check it set-wise, and define the SI points.
+    stage: duckdb.DuckDBPyConnection, source: CampaignSource, trials: pd.DataFrame, stored: set[str]
+) -> tuple[list[Problem], list[str], Staged | None]:
+    """Load the trace table into the staging database and check it set-wise.
 
     A CSV file is first read with typed columns, which is all a clean file costs; only when that read fails or a
     check finds a fault (bad cell, time not increasing, unknown trial, trial without points) is it read again as
-    text, so that each fault is reported with its line and its text as written. Defines the staging view
-    ``points(line, trial_id, t, value)`` in SI for every trial of this import.
+    text, so that each fault is reported with its line and its text as written. ``stored`` are the ids already in
+    the store (their codes come last). Returns the problems, the notes and, for clean points, the
+    :class:`Staged` description the final write and the comparison with stored traces use.
     """
     names, time_scale, problems, notes = trace_layout(source.traces)
     label = source.traces.label
     if problems:
-        return problems, notes
-    stage.register("factors", pd.DataFrame({
+        return problems, notes, None
+    factors = pd.DataFrame({
         "trial_id": trials["trial_id"],
         "scale": trials["signal_scale"],
         "shift": trials["signal_shift"],
-        "time_scale": time_scale,
+        "stored": trials["trial_id"].isin(stored),
         # Bounds in the file's units, so the checks run on the numbers as read: no product can overflow.
         "time_limit": LONGEST_TRACE_S / time_scale,
         "value_limit": 1e300 / trials["signal_scale"].fillna(1.0).clip(lower=1.0),
-    }).dropna(subset=["trial_id"]))
+    }).dropna(subset=["trial_id"])
+    stage.register("factors", factors)
+    # Codes in the order (already stored, scale, shift): a few ranges of codes, each with one conversion. A repeated
+    # id (already a problem of the trials table) is one member.
+    stage.execute("CREATE TYPE trial_key AS ENUM (SELECT trial_id FROM factors GROUP BY trial_id "
+                  "ORDER BY bool_or(stored), min(scale), min(shift), trial_id)")
     if not (source.traces.csv_path is not None and _stage_typed(stage, source, names)):
         try:
             _stage_text(stage, source, names)
         except duckdb.Error as exc:
             ragged = _ragged_lines(source.traces.csv_path, label)
-            return ragged or [Problem(label, None, None, f"cannot be read as CSV: {first_line(exc)}")], notes
+            return ragged or [Problem(label, None, None, f"cannot be read as CSV: {first_line(exc)}")], notes, None
         located = []
         for condition, column, message in _TRACE_FAULTS:
             located += _located(stage, f"SELECT line, trial_id, time_text, value_text FROM typed WHERE {condition}",
@@ -83,18 +124,24 @@ def stage_traces(
         problems += [Problem(source.trials.label, trial_rows.get(t), "trial_id",
                              f"trial '{t}' has no trace points in {label}") for (t,) in empty]
     if problems:
-        return problems, notes
-    # A view, not a table: the points are read once more by the final write, so they are never held twice. A join
-    # does not keep its input's order (measured: 1 % of rows in place), so the view keeps the file line for the final
-    # write to order by: the store then holds the points in file order.
-    stage.execute(
-        """
-        CREATE VIEW points AS
-        SELECT p.line, p.trial_id, p.time_num * f.time_scale AS t, p.value_num * f.scale + f.shift AS value
-        FROM typed p JOIN factors f USING (trial_id)
-        """
-    )
-    return problems, notes
+        return problems, notes, None
+    return problems, notes, _code_ranges(stage, time_scale)
+
+
+def _code_ranges(stage: duckdb.DuckDBPyConnection, time_scale: float) -> Staged:
+    """The trial codes' ranges of equal conversion, read from the codes DuckDB gave (not assumed from the order)."""
+    rows = stage.execute(
+        "SELECT enum_code(trial_id::trial_key) AS code, any_value(scale), any_value(shift), bool_or(stored) "
+        "FROM factors GROUP BY code ORDER BY code"
+    ).fetchall()
+    ranges: list[tuple[int, float, float]] = []
+    for code, scale, shift, _ in rows:
+        if ranges and ranges[-1][1:] == (scale, shift):
+            ranges[-1] = (code + 1, scale, shift)
+        else:
+            ranges.append((code + 1, scale, shift))
+    written = next((code for code, _, _, stored in rows if stored), len(rows))
+    return Staged(time_scale, tuple(ranges), written)
 
 
 def _file_lines(problems: list[Problem], path: Path | None) -> list[Problem]:
@@ -132,7 +179,8 @@ def _stage_typed(stage: duckdb.DuckDBPyConnection, source: CampaignSource, names
     for the message.
     """
     columns = _csv_names(source, names)
-    types = ["DOUBLE" if n in ("time", "value") else "VARCHAR" for n in columns]
+    # An id that is not a trial of this campaign (or carries spaces) fails the read: the text path locates it.
+    types = [{"time": "DOUBLE", "value": "DOUBLE", "trial_id": "trial_key"}.get(n, "VARCHAR") for n in columns]
     try:
         with literal_path(source.traces.csv_path) as path:
             stage.execute("CREATE TABLE raw AS SELECT * FROM read_csv(?, header = true, names = ?, types = ?)",
@@ -140,8 +188,8 @@ def _stage_typed(stage: duckdb.DuckDBPyConnection, source: CampaignSource, names
     except duckdb.Error:
         return False
     stage.execute(
-        "CREATE VIEW typed AS SELECT rowid + 2 AS line, trim(trial_id) AS trial_id, time AS time_num, "
-        "value AS value_num FROM raw"
+        "CREATE VIEW typed AS SELECT rowid + 2 AS line, trial_id::VARCHAR AS trial_id, enum_code(trial_id) AS code, "
+        "time AS time_num, value AS value_num FROM raw"
     )
     cells = " OR ".join(f"({c})" for c, _, _ in _TRACE_FAULTS[:5])
     # One streaming scan marks the rows that matter: where a trial's run of rows starts, where the file order
@@ -199,7 +247,7 @@ def _stage_text(stage: duckdb.DuckDBPyConnection, source: CampaignSource, names:
     stage.execute(
         """
         CREATE TABLE typed AS
-        SELECT rowid + 2 AS line, trim(trial_id) AS trial_id,
+        SELECT rowid + 2 AS line, trim(trial_id) AS trial_id, enum_code(TRY_CAST(trim(trial_id) AS trial_key)) AS code,
                coalesce(time, '') AS time_text, coalesce(value, '') AS value_text,
                TRY_CAST(time AS DOUBLE) AS time_num, TRY_CAST(value AS DOUBLE) AS value_num
         FROM raw
@@ -228,25 +276,42 @@ def _located(stage, sql: str, label: str, header: str, message: str) -> list[Pro
     return out
 
 
-def same_traces(con, stage, overlap: list[str]) -> set[str]:
+def same_traces(con, stage, staged: Staged, overlap: list[str]) -> set[str]:
     """Trial ids whose staged points equal the stored ones (same count, same times and values)."""
     stored = con.execute(
         "SELECT trial_id, t, value FROM trace_points WHERE trial_id IN (SELECT * FROM unnest(?))", [overlap]
     ).df()
     stage.register("stored_points", stored)
+    points, params = staged.si_points()
     rows = stage.execute(
-        """
+        f"""
         WITH a AS (SELECT trial_id, t, value, row_number() OVER (PARTITION BY trial_id ORDER BY t) AS k
-                   FROM points WHERE trial_id IN (SELECT trial_id FROM stored_points)),
+                   FROM ({points}) WHERE trial_id IN (SELECT trial_id FROM stored_points)),
              b AS (SELECT trial_id, t, value, row_number() OVER (PARTITION BY trial_id ORDER BY t) AS k
                    FROM stored_points)
         SELECT trial_id FROM a FULL JOIN b USING (trial_id, k)
         GROUP BY trial_id
         HAVING bool_and(a.t IS NOT NULL AND b.t IS NOT NULL
                         AND abs(a.t - b.t) <= 1e-12 * abs(b.t) AND abs(a.value - b.value) <= 1e-12 * abs(b.value))
-        """
+        """,
+        params,
     ).fetchall()
     return {r[0] for r in rows}
+
+
+def write_points(stage: duckdb.DuckDBPyConnection, staged: Staged) -> int:
+    """Append the staged points of the trials not yet stored to ``store.trace_points``, in file order.
+
+    A streaming scan of the staged rows (projection and filter only): no join, no sort. Returns the rows written.
+    """
+    points, params = staged.si_points("code < ?")
+    return stage.execute(f"INSERT INTO store.trace_points SELECT trial_id, t, value FROM ({points})",
+                         [*params, staged.written]).fetchone()[0]
+
+
+def count_points(stage: duckdb.DuckDBPyConnection, staged: Staged) -> int:
+    """How many staged points belong to trials not yet stored (the ones :func:`write_points` writes)."""
+    return stage.execute("SELECT count(*) FROM typed WHERE code < ?", [staged.written]).fetchone()[0]
 
 
 def _ragged_lines(path, label: str, limit: int = 50) -> list[Problem]:
