@@ -49,30 +49,30 @@ _NOT_INCREASING = """
 class Staged:
     """The staged points: the time scale to seconds, and the trial codes' ranges with their SI scale and shift.
 
-    ``ranges`` holds ``(end, scale, shift)``: codes below ``end`` (and not below the previous end) take that scale
-    and shift. Codes from ``written`` on are trials already stored, which the final write leaves out.
+    ``ranges`` holds ``(end, scale, shift, new)``: codes below ``end`` (and not below the previous end) take that
+    scale and shift; ``new`` is false for trials already stored, which the final write leaves out.
     """
 
     time_scale: float
-    ranges: tuple[tuple[int, float, float], ...]
-    written: int
+    ranges: tuple[tuple[int, float, float, bool], ...]
 
-    def si_points(self, where: str = "true") -> tuple[str, list]:
-        """SQL (and its parameters) of the staged points ``line, trial_id, code, t, value`` in SI, in file order.
+    def _by_code(self, field: int) -> tuple[str, list]:
+        """A CASE over the code ranges giving one field of each range (the values bound, the shape fixed)."""
+        return ("CASE " + " ".join("WHEN code < ? THEN ?" for _ in self.ranges) + " END",
+                [x for r in self.ranges for x in (r[0], r[field])])
+
+    def si_points(self, new_only: bool = False) -> tuple[str, list]:
+        """SQL (and its parameters) of the staged points ``line, trial_id, t, value`` in SI, in file order.
 
         .. math:: t = t_\\mathrm{file}\\,s_t, \\qquad y = y_\\mathrm{file}\\,a_i + b_i
 
-        with :math:`a_i, b_i` the scale and shift of trial *i*'s signal unit. Projections and filters only, so the
-        rows keep the staged (file) order; ``where`` is a condition on ``code`` whose values are bound by the caller.
+        with :math:`a_i, b_i` the scale and shift of trial *i*'s signal unit. Projections and a filter only, so the
+        rows keep the staged (file) order; ``new_only`` leaves out the trials already stored.
         """
-        # One shape for the scale and the shift: the same code ranges, each with its own bound values.
-        by_code = "CASE " + " ".join("WHEN code < ? THEN ?" for _ in self.ranges) + " END"
-        sql = (f"SELECT line, trial_id, code, time_num * ? AS t, value_num * {by_code} + {by_code} AS value "
-               f"FROM typed WHERE {where}")
-        params = [self.time_scale]
-        params += [x for end, a, _ in self.ranges for x in (end, a)]
-        params += [x for end, _, b in self.ranges for x in (end, b)]
-        return sql, params
+        (scale, a), (shift, b), (new, keep) = self._by_code(1), self._by_code(2), self._by_code(3)
+        where, w = (new, keep) if new_only and not all(r[3] for r in self.ranges) else ("true", [])
+        return (f"SELECT line, trial_id, time_num * ? AS t, value_num * {scale} + {shift} AS value FROM typed "
+                f"WHERE {where}", [self.time_scale, *a, *b, *w])
 
 
 def stage_traces(
@@ -129,19 +129,21 @@ def stage_traces(
 
 
 def _code_ranges(stage: duckdb.DuckDBPyConnection, time_scale: float) -> Staged:
-    """The trial codes' ranges of equal conversion, read from the codes DuckDB gave (not assumed from the order)."""
+    """The trial codes' runs of equal conversion, from the codes DuckDB gave (the type's order is not relied on).
+
+    A run is a gap-free stretch of codes with one (stored, scale, shift): code minus its rank within that group is
+    constant along a run.
+    """
     rows = stage.execute(
-        "SELECT enum_code(trial_id::trial_key) AS code, any_value(scale), any_value(shift), bool_or(stored) "
-        "FROM factors GROUP BY code ORDER BY code"
+        """
+        SELECT max(code) + 1 AS stop, scale, shift, NOT stored
+        FROM (SELECT *, code - row_number() OVER (PARTITION BY stored, scale, shift ORDER BY code) AS run
+              FROM (SELECT DISTINCT enum_code(trial_id::trial_key) AS code, scale, shift, stored FROM factors))
+        GROUP BY stored, scale, shift, run
+        ORDER BY stop
+        """
     ).fetchall()
-    ranges: list[tuple[int, float, float]] = []
-    for code, scale, shift, _ in rows:
-        if ranges and ranges[-1][1:] == (scale, shift):
-            ranges[-1] = (code + 1, scale, shift)
-        else:
-            ranges.append((code + 1, scale, shift))
-    written = next((code for code, _, _, stored in rows if stored), len(rows))
-    return Staged(time_scale, tuple(ranges), written)
+    return Staged(time_scale, tuple(rows))
 
 
 def _file_lines(problems: list[Problem], path: Path | None) -> list[Problem]:
@@ -304,14 +306,15 @@ def write_points(stage: duckdb.DuckDBPyConnection, staged: Staged) -> int:
 
     A streaming scan of the staged rows (projection and filter only): no join, no sort. Returns the rows written.
     """
-    points, params = staged.si_points("code < ?")
+    points, params = staged.si_points(new_only=True)
     return stage.execute(f"INSERT INTO store.trace_points SELECT trial_id, t, value FROM ({points})",
-                         [*params, staged.written]).fetchone()[0]
+                         params).fetchone()[0]
 
 
 def count_points(stage: duckdb.DuckDBPyConnection, staged: Staged) -> int:
     """How many staged points belong to trials not yet stored (the ones :func:`write_points` writes)."""
-    return stage.execute("SELECT count(*) FROM typed WHERE code < ?", [staged.written]).fetchone()[0]
+    points, params = staged.si_points(new_only=True)
+    return stage.execute(f"SELECT count(*) FROM ({points})", params).fetchone()[0]
 
 
 def _ragged_lines(path, label: str, limit: int = 50) -> list[Problem]:
