@@ -77,6 +77,28 @@ def test_reimport_edited_campaign_skips_identical_rows(campaign, db):
     assert len(snapshot(db)["trials"]) == 5
 
 
+def test_reimport_converts_new_trials_of_mixed_units_and_keeps_their_file_order(campaign, db):
+    """New trials whose units interleave with stored ones: each gets its own unit's factor, in file order."""
+    store.import_campaign(db, read_source(campaign))
+    lines = TRIALS.splitlines()
+    extra = ["R5,PdC-A,30,gas_volume,mL,12.5,0.8,3,,,,ana,", "R6,CoSi-C,50,pressure,kPa,15,0.8,3,,60,,ana,"]
+    (campaign / "trials.csv").write_text("\n".join([lines[0], extra[1], *lines[1:], extra[0]]) + "\n")
+    new_rows = ["R6,0,100.5", "R6,30,101.0", "R5,0,1.5", "R5,30,2.5", "R5,90,3.0"]
+    body = trace_rows().splitlines()
+    (campaign / "traces.csv").write_text("\n".join([body[0], *new_rows[:2], *body[1:], *new_rows[2:]]) + "\n")
+    report = store.import_campaign(db, read_source(campaign))
+    assert report.n_trials == 2 and report.n_points == 5
+    con = duckdb.connect(str(db), read_only=True)
+    stored = con.execute("SELECT trial_id, t, value FROM trace_points WHERE trial_id IN ('R5', 'R6')").fetchall()
+    con.close()
+    # 1 mL = 1e-6 m^3 (the litre is 1 dm^3) and 1 kPa = 1e3 Pa: SI Brochure, 9th ed., table 8 and the SI prefixes.
+    factor = {"R5": 1e-6, "R6": 1e3}
+    expected = [(r.split(",")[0], float(r.split(",")[1]), float(r.split(",")[2]) * factor[r.split(",")[0]])
+                for r in new_rows]
+    assert [(trial, t) for trial, t, _ in stored] == [(trial, t) for trial, t, _ in expected]  # storage order
+    assert [v for _, _, v in stored] == pytest.approx([v for _, _, v in expected], rel=1e-12)
+
+
 def test_reimport_with_changed_values_is_refused_and_keeps_old(campaign, db):
     store.import_campaign(db, read_source(campaign))
     before = snapshot(db)
