@@ -14,6 +14,7 @@ import sys
 from pathlib import Path
 
 import duckdb
+import numpy as np
 import pandas as pd
 import pytest
 from support import TRIALS, trace_rows, write_campaign
@@ -282,6 +283,14 @@ def test_fit_blocks_are_bounded_by_points_not_trials(tmp_path):
     assert sizes == [800, 800, 800, 800, 1000]
     # A trial longer than the bound is a block of its own; unknown ids cost nothing.
     assert store.point_blocks(db, ["L0", "S0", "nope", "L1"], 100) == [["L0"], ["S0", "nope"], ["L1"]]
+    # A block is read as arrays in the order asked, each trial's points in time order; unknown ids are left out.
+    block = store.load_point_arrays(db, ["S3", "nope", "L1", "S0"])
+    assert block.trial_ids == ["S3", "L1", "S0"]
+    assert block.counts.tolist() == [5, 400, 5]
+    long = store.load_campaign(db)[2].set_index("trial_id")
+    for code, trial in enumerate(block.trial_ids):
+        assert np.array_equal(block.t[block.codes == code], long.loc[trial, "t"].to_numpy())
+        assert np.array_equal(block.value[block.codes == code], long.loc[trial, "value"].to_numpy())
 
 
 # --------------------------------------------------------------------------------------------------- issue 10 item 3

@@ -65,11 +65,15 @@ def _amounts(order: pd.DataFrame, codes: np.ndarray, value: np.ndarray) -> np.nd
 def fit_all(trials: pd.DataFrame, points: pd.DataFrame) -> pd.DataFrame:
     """Fit every trial's trace at once; one row per trial (indexed by trial_id) with the kinetic fit columns."""
     codes, uniques = pd.factorize(points["trial_id"], sort=False)
-    order = trials.loc[uniques]
+    return fit_coded(trials.loc[uniques], codes, points["t"].to_numpy(float), points["value"].to_numpy(float))
+
+
+def fit_coded(order: pd.DataFrame, codes: np.ndarray, t: np.ndarray, value: np.ndarray) -> pd.DataFrame:
+    """:func:`fit_all` on integer trial codes (points sorted by code, then time); ``order`` holds the trial rows,
+    indexed by trial_id, in code order."""
     n_max = (order["limiting_amount"] * order["product_ratio"]).to_numpy(float)
-    amount = _amounts(order, codes, points["value"].to_numpy(float))
-    fits = batch.fit_traces(codes, points["t"].to_numpy(float), amount, n_max)
-    fits.index = pd.Index(uniques, name="trial_id")
+    fits = batch.fit_traces(codes, t, _amounts(order, codes, value), n_max)
+    fits.index = pd.Index(order.index, name="trial_id")
     return fits[list(TRIAL_FIT_COLUMNS)]
 
 
