@@ -8,7 +8,8 @@ from __future__ import annotations
 
 import numpy as np
 import periodictable
-from scipy.constants import R
+
+from catalog.core.constants import R
 
 __all__ = [
     "amount_from_concentration",
