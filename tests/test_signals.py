@@ -1,6 +1,7 @@
 """Reference checks for catalog.core.signals: ideal gas, water vapour pressure, molar masses."""
 
 import numpy as np
+import periodictable
 import pytest
 from iapws.iapws97 import (
     _PSat_T,  # GPL: used here as an outside reference only, never by catalog/
@@ -90,9 +91,19 @@ def test_molar_mass_from_standard_atomic_weights(formula, grams_per_mol):
     assert molar_mass(formula) == pytest.approx(grams_per_mol * 1e-3, rel=5e-5)
 
 
+@pytest.mark.parametrize(("metal", "grams_per_mol"), [("Pt", 195.084), ("Pd", 106.42), ("Ni", 58.6934)])
+def test_molar_mass_of_an_element_symbol(metal, grams_per_mol):
+    # Source: CIAAW standard atomic weights (from memory; periodictable 2.1 tabulates the same). The symbol is looked
+    # up directly, so it must also give exactly what the formula parser gives.
+    assert molar_mass(metal) == pytest.approx(grams_per_mol * 1e-3, rel=1e-6)
+    assert molar_mass(metal) == periodictable.formula(metal).mass * 1e-3
+
+
 def test_molar_mass_rejects_nonsense():
     with pytest.raises(ValueError):
         molar_mass("Xx")
+    with pytest.raises(ValueError):
+        molar_mass("n")  # the neutron is no element of a formula
 
 
 def test_mass_loss_zeroes_on_first_reading():
