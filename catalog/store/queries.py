@@ -115,21 +115,32 @@ def load_point_arrays(db: Store, trial_ids) -> PointArrays:
     """Trace points of the given trials as arrays, trial by trial in the order given, each in time order.
 
     The trials travel into the query with their position, and the points come back as numbers only: position, t,
-    value. Measured at 2×10^6 points: 0.1 s, against ~0.6 s for the long table with a trial id string per point
-    and ~0.1 s more to number those strings again.
+    value. They are read on one thread, which keeps the rows in storage order, and an import stores each trial's
+    points together in time order; so they are checked for order and sorted here only when they are not (points
+    added to a trial by a later import, say). Measured at 2×10^6 points: 0.09-0.13 s, against 0.26-0.65 s for
+    the same read sorted by DuckDB and ~0.6 s for the long table with a trial id string per point.
     """
     asked = pd.DataFrame({"trial_id": pd.Series(list(trial_ids), dtype=object)})
     asked["position"] = np.arange(len(asked), dtype=np.int64)
     with session(db) as con:
+        threads = con.execute("SELECT current_setting('threads')").fetchall()[0][0]
         con.register("asked", asked)
-        got = con.execute(
-            """SELECT a.position, p.t, p.value FROM trace_points p JOIN asked a USING (trial_id)
-               ORDER BY a.position, p.t""").fetchnumpy()
-        con.unregister("asked")
-    counts = np.bincount(np.asarray(got["position"], dtype=np.int64), minlength=len(asked))
+        con.execute("SET threads = 1")
+        try:
+            got = con.execute(
+                "SELECT a.position, p.t, p.value FROM trace_points p JOIN asked a USING (trial_id)").fetchnumpy()
+        finally:
+            con.execute("SET threads = ?", [threads])
+            con.unregister("asked")
+    position = np.asarray(got["position"], dtype=np.int64)
+    t, value = np.asarray(got["t"], dtype=float), np.asarray(got["value"], dtype=float)
+    step = np.diff(position)
+    if not ((step > 0) | ((step == 0) & (np.diff(t) > 0))).all():
+        order = np.lexsort((t, position))
+        position, t, value = position[order], t[order], value[order]
+    counts = np.bincount(position, minlength=len(asked))
     have = counts > 0
-    return PointArrays(asked["trial_id"][have].tolist(), counts[have], np.asarray(got["t"], dtype=float),
-                       np.asarray(got["value"], dtype=float))
+    return PointArrays(asked["trial_id"][have].tolist(), counts[have], t, value)
 
 
 def point_blocks(db: Store, trial_ids, max_points: int) -> list[list[str]]:
