@@ -283,6 +283,8 @@ def test_fit_blocks_are_bounded_by_points_not_trials(tmp_path):
     assert sizes == [800, 800, 800, 800, 1000]
     # A trial longer than the bound is a block of its own; unknown ids cost nothing.
     assert store.point_blocks(db, ["L0", "S0", "nope", "L1"], 100) == [["L0"], ["S0", "nope"], ["L1"]]
+    # When every stored point fits in one block, the trials asked for are one block, as the count would give.
+    assert store.point_blocks(db, order, 4200) == [order] and store.point_blocks(db, [], 4200) == []
     # A block is read as arrays in the order asked, each trial's points in time order; unknown ids are left out.
     block = store.load_point_arrays(db, ["S3", "nope", "L1", "S0"])
     assert block.trial_ids == ["S3", "L1", "S0"]

@@ -151,6 +151,10 @@ def point_blocks(db: Store, trial_ids, max_points: int) -> list[list[str]]:
     """
     wanted = pd.DataFrame({"trial_id": pd.Series(list(trial_ids), dtype=object)})
     with session(db) as con:
+        # When the whole trace table fits in one block, so do the trials asked for: no need to count their points
+        # (a grouped count over 2×10^6 rows, ~35 ms).
+        if con.execute("SELECT count(*) FROM trace_points").fetchall()[0][0] <= max_points:
+            return [list(wanted["trial_id"])] if len(wanted) else []
         con.register("wanted", wanted)
         counts = dict(con.execute(
             "SELECT trial_id, count(*) FROM trace_points SEMI JOIN wanted USING (trial_id) GROUP BY trial_id"
