@@ -14,6 +14,7 @@ import sys
 from pathlib import Path
 
 import duckdb
+import numpy as np
 import pandas as pd
 import pytest
 from support import TRIALS, trace_rows, write_campaign
@@ -282,6 +283,38 @@ def test_fit_blocks_are_bounded_by_points_not_trials(tmp_path):
     assert sizes == [800, 800, 800, 800, 1000]
     # A trial longer than the bound is a block of its own; unknown ids cost nothing.
     assert store.point_blocks(db, ["L0", "S0", "nope", "L1"], 100) == [["L0"], ["S0", "nope"], ["L1"]]
+    # When every stored point fits in one block, the trials asked for are one block, as the count would give.
+    assert store.point_blocks(db, order, 4200) == [order] and store.point_blocks(db, [], 4200) == []
+    # A block is read as arrays in the order asked, each trial's points in time order; unknown ids are left out.
+    block = store.load_point_arrays(db, ["S3", "nope", "L1", "S0"])
+    assert block.trial_ids == ["S3", "L1", "S0"]
+    assert block.counts.tolist() == [5, 400, 5]
+    long = store.load_campaign(db)[2].set_index("trial_id")
+    for code, trial in enumerate(block.trial_ids):
+        assert np.array_equal(block.t[block.codes == code], long.loc[trial, "t"].to_numpy())
+        assert np.array_equal(block.value[block.codes == code], long.loc[trial, "value"].to_numpy())
+
+
+def test_point_arrays_come_in_trial_and_time_order_whatever_the_file_order(tmp_path):
+    # A trace file that interleaves its trials (rows by reading, not by trial) is stored in file order; the arrays
+    # still come trial by trial, each in time order, equal to the ordered long table.
+    lines = trace_rows().splitlines()
+    header, rows = lines[0], lines[1:]
+    interleaved = [rows[i + 10 * k] for i in range(10) for k in range(4)]
+    folder = write_campaign(tmp_path / "c", traces="\n".join([header, *interleaved]) + "\n")
+    db = tmp_path / "x.duckdb"
+    store.import_campaign(db, read_source(folder))
+    block = store.load_point_arrays(db, ["R4", "R1", "R3", "R2"])
+    assert block.trial_ids == ["R4", "R1", "R3", "R2"] and block.counts.tolist() == [10, 10, 10, 10]
+    long = store.load_campaign(db)[2].set_index("trial_id")
+    for code, trial in enumerate(block.trial_ids):
+        assert np.array_equal(block.t[block.codes == code], long.loc[trial, "t"].to_numpy())
+        assert np.array_equal(block.value[block.codes == code], long.loc[trial, "value"].to_numpy())
+    # The read runs on one thread; an open session gets its own setting back.
+    with store.session(db) as con:
+        con.execute("SET threads = 2")
+        store.load_point_arrays(con, ["R1"])
+        assert con.execute("SELECT current_setting('threads')").fetchall()[0][0] == 2
 
 
 # --------------------------------------------------------------------------------------------------- issue 10 item 3

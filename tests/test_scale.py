@@ -12,10 +12,11 @@ import numpy as np
 import pytest
 
 from catalog import store
-from catalog.analysis import results
+from catalog.analysis import per_trial, results
 from catalog.analysis.per_trial import trace_amounts
 from catalog.analysis.settings import FIT_VERSION, Settings
 from catalog.core import kinetics
+from catalog.core.measurements import condition_arrays, to_amount
 from catalog.datasets.bulk import write_bulk_campaign
 from catalog.ingest import sources
 
@@ -50,6 +51,28 @@ def test_stored_rates_match_the_per_trial_reference(bulk, tmp_path):
         assert stored["model"] == ref.model, trial_id
         assert stored["r0"] == pytest.approx(ref.r0, rel=1e-6), trial_id
         assert stored["n_points"] == N_POINTS
+
+
+def test_amounts_in_blocks_and_of_interleaved_points_equal_each_trial_converted_alone(bulk, tmp_path, monkeypatch):
+    # The measurement kinds of the bulk campaign (three at this size), converted a block of trials at a time (here one trial per
+    # block) and from points of interleaved trials, against each trial through the registry on its own (the
+    # converters' references are in test_signals.py). Element-wise arithmetic: the same doubles, exactly.
+    db = tmp_path / "amounts.duckdb"
+    store.import_campaign(db, sources.read_source(bulk))
+    _, trials, points = store.load_campaign(db)
+    trials = trials.set_index("trial_id")
+    assert trials["measurement"].nunique() >= 3
+    expected = np.empty(len(points))
+    for trial_id, at in points.groupby("trial_id").indices.items():
+        one = trials.loc[[trial_id]]
+        kind = one["measurement"].iloc[0]
+        value = points["value"].to_numpy()[at]
+        expected[at] = to_amount(kind, value - value[0], **condition_arrays(kind, one))
+    monkeypatch.setattr(per_trial, "AMOUNT_BLOCK_POINTS", 7)
+    assert np.array_equal(trace_amounts(trials, points), expected)
+    interleaved = points.sort_values("t", kind="stable")
+    assert interleaved["trial_id"].iloc[0] != interleaved["trial_id"].iloc[1]
+    assert np.array_equal(trace_amounts(trials, interleaved), expected[interleaved.index.to_numpy()])
 
 
 def _first_trials(source, target, n: int) -> None:

@@ -1,6 +1,7 @@
 """Reference checks for catalog.core.signals: ideal gas, water vapour pressure, molar masses."""
 
 import numpy as np
+import periodictable
 import pytest
 from iapws.iapws97 import (
     _PSat_T,  # GPL: used here as an outside reference only, never by catalog/
@@ -69,15 +70,40 @@ def test_collection_over_water_subtracts_vapour_pressure():
     assert wet == pytest.approx(dry, rel=1e-12)
 
 
+def test_collection_over_water_on_gathered_traces_matches_each_reading():
+    # Readings of three trials (gas temperature gathered per reading, wet and dry mixed), as the analysis passes
+    # them: each reading must get exactly what it gets on its own, and Dalton's law against iapws 1.5.5 (IF97).
+    T = np.repeat([293.15, 308.15, 293.15], [4, 3, 5])
+    wet = np.repeat([True, False, True], [4, 3, 5])
+    V = np.linspace(1e-6, 60e-6, T.size)
+    p = 100_000.0
+    together = amount_from_gas_volume(V, p, T, wet)
+    alone = np.array([amount_from_gas_volume(V[i:i + 1], p, T[i:i + 1], wet[i:i + 1])[0] for i in range(T.size)])
+    assert np.array_equal(together, alone)
+    expected = (p - wet * np.array([_PSat_T(x) * 1e6 for x in T])) * V / (physical_constants["molar gas constant"][0]
+                                                                         * T)
+    assert together == pytest.approx(expected, rel=1e-12)
+
+
 @pytest.mark.parametrize(("formula", "grams_per_mol"), [("H2", 2.016), ("CO2", 44.009), ("O2", 31.998)])
 def test_molar_mass_from_standard_atomic_weights(formula, grams_per_mol):
     # Source: IUPAC abridged standard atomic weights as tabulated by periodictable 2.1; 5 significant digits.
     assert molar_mass(formula) == pytest.approx(grams_per_mol * 1e-3, rel=5e-5)
 
 
+@pytest.mark.parametrize(("metal", "grams_per_mol"), [("Pt", 195.084), ("Pd", 106.42), ("Ni", 58.6934)])
+def test_molar_mass_of_an_element_symbol(metal, grams_per_mol):
+    # Source: CIAAW standard atomic weights (from memory; periodictable 2.1 tabulates the same). The symbol is looked
+    # up directly, so it must also give exactly what the formula parser gives.
+    assert molar_mass(metal) == pytest.approx(grams_per_mol * 1e-3, rel=1e-6)
+    assert molar_mass(metal) == periodictable.formula(metal).mass * 1e-3
+
+
 def test_molar_mass_rejects_nonsense():
     with pytest.raises(ValueError):
         molar_mass("Xx")
+    with pytest.raises(ValueError):
+        molar_mass("n")  # the neutron is no element of a formula
 
 
 def test_mass_loss_zeroes_on_first_reading():

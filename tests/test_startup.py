@@ -20,7 +20,7 @@ from catalog.analysis import results
 from catalog.analysis.settings import Settings
 
 ROOT = Path(__file__).resolve().parents[1]
-HEAVY = ("scipy.stats", "scipy.optimize", "altair", "openpyxl", "vl_convert", "streamlit", "pint")
+HEAVY = ("scipy.constants", "scipy.stats", "scipy.optimize", "altair", "openpyxl", "vl_convert", "streamlit", "pint")
 
 
 def _loaded_by(*argv: str) -> set[str]:

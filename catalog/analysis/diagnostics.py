@@ -186,21 +186,28 @@ def _deactivation_rollup(trials: pd.DataFrame, trial_flags: list[dict]) -> list[
     """
     if "catalyst_id" not in trials.columns:
         return []
-    def trials_with(codes):
-        return {f["record_id"] for f in trial_flags if f["code"] in codes}
+    catalysed = trials[trials["catalyst_id"].notna()]
+    # Counted for every catalyst at once: a pandas group and a set look-up per trial per catalyst cost ~0.7 ms per
+    # catalyst (measured at 500 catalysts).
+    codes, ids = pd.factorize(catalysed["catalyst_id"], sort=True)
+    record = pd.Index([str(t) for t in catalysed.index])
 
-    hit = trials_with(("late-shortfall", "plateau-short"))
-    fit_quality = trials_with(("poor-fit", "residual-pattern", "fit-fallback"))
-    leaks, lags = trials_with(("leak",)), trials_with(("induction-period",))
+    def count(flag_codes) -> np.ndarray:
+        hit = {f["record_id"] for f in trial_flags if f["code"] in flag_codes}
+        return np.bincount(codes, weights=record.isin(hit), minlength=len(ids)).astype(int)
+
+    total = np.bincount(codes, minlength=len(ids))
+    late = count(("late-shortfall", "plateau-short"))
+    fit_quality = count(("poor-fit", "residual-pattern", "fit-fallback"))
+    leaks, lags = count(("leak",)), count(("induction-period",))
     out = []
-    for cid, group in trials[trials["catalyst_id"].notna()].groupby("catalyst_id", sort=True):
-        n = len(group)
-        ids = [str(t) for t in group.index]
-        k = sum(t in hit for t in ids)
+    for i, cid in enumerate(ids):
+        n = int(total[i])
+        k = int(late[i])
         if k >= DEACTIVATION_MIN_TRIALS or k > n / 2:
             out.append(_flag("catalyst", cid, "deactivation",
                              f"{k} of {n} trials slow down late or level off short of full conversion.", k / n, 0.5))
-        k = sum(t in fit_quality for t in ids)
+        k = int(fit_quality[i])
         if k >= DEACTIVATION_MIN_TRIALS or k > n / 2:
             out.append(_flag("catalyst", cid, "trial-fit-quality",
                              f"{k} of {n} trials fit poorly, show patterned residuals or fell back to the initial "
@@ -208,7 +215,7 @@ def _deactivation_rollup(trials: pd.DataFrame, trial_flags: list[dict]) -> list[
         # A leak or a slow start in any trial reaches the catalyst row: each bears on how far its figures hold.
         for code, which, what in (("leak", leaks, "show a fall in product after the maximum (cut there)"),
                                   ("induction-period", lags, "start slowly and then speed up")):
-            k = sum(t in which for t in ids)
+            k = int(which[i])
             if k:
                 out.append(_flag("catalyst", cid, code, f"{k} of {n} trials {what}.", k / n, 0.0))
     return out

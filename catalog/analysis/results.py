@@ -136,7 +136,7 @@ def _compute(catalysts: pd.DataFrame, trials: pd.DataFrame, fits: pd.DataFrame, 
 def _fit_missing(db, trials: pd.DataFrame, cached: pd.DataFrame, blocks: list[list[str]],
                  say: Callable[[str], None]) -> pd.DataFrame:
     """Kinetic fits for every trial: cached ones reused, the rest fitted a block of trace points at a time."""
-    from catalog.analysis.per_trial import fit_all  # deferred with the pipeline (see _compute)
+    from catalog.analysis.per_trial import fit_coded  # deferred with the pipeline (see _compute)
 
     n_todo = sum(len(block) for block in blocks)
     say(f"fitting {n_todo} trace(s), reusing {len(trials) - n_todo} cached fit(s)")
@@ -145,10 +145,10 @@ def _fit_missing(db, trials: pd.DataFrame, cached: pd.DataFrame, blocks: list[li
         # Separate messages for the read and the fits: on a large campaign the user (and the benchmark) sees which.
         part = f" of trials {done + 1}-{done + len(block)} of {n_todo}" if len(blocks) > 1 else ""
         say(f"  reading the trace points{part}")
-        points = store.load_points(db, block)
+        points = store.load_point_arrays(db, block)
         say(f"  fitting the rate laws{part}")
         with np.errstate(all="ignore"):  # NaN figures for missing inputs, by design (see _compute)
-            fresh.append(fit_all(trials.loc[block], points))
+            fresh.append(fit_coded(trials.loc[points.trial_ids], points.codes, points.t, points.value))
         done += len(block)
     return pd.concat([cached.loc[cached.index.intersection(trials.index)], *fresh])
 

@@ -12,9 +12,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.constants import R, h
-from scipy.constants import k as k_B
 
+from catalog.core.constants import R, h, k_B
 from catalog.core.linefit import fit_line
 from catalog.core.stats import CONFIDENCE
 from catalog.errors import CatalogError

@@ -5,7 +5,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.constants import R
+
+from catalog.core.constants import R
 
 __all__ = [
     "CAUTION",

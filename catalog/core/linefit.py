@@ -7,13 +7,14 @@ standard errors, the variances are taken as known and the normal quantile is use
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
 
 from catalog.core.stats import Z95, t95
 
-__all__ = ["SCATTER_MODELS", "LineFit", "fit_line"]
+__all__ = ["SCATTER_MODELS", "LineFit", "brent_root", "fit_line"]
 
 
 @dataclass(frozen=True)
@@ -72,6 +73,66 @@ def _weighted_line(x, y, var):
     intercept = y_bar - slope * x_bar
     chi2 = float((w * (y - intercept - slope * x) ** 2).sum())
     return chi2, intercept, slope, sw, x_bar, y_bar, sxx, w
+
+
+#: Relative part of :func:`brent_root`'s tolerance: four units in the last place, as scipy.optimize.brentq uses.
+_ROOT_RTOL = 4 * np.finfo(float).eps
+
+
+def brent_root(f, a: float, b: float, xtol: float, rtol: float = _ROOT_RTOL, maxiter: int = 100) -> float:
+    """A root of ``f`` between ``a`` and ``b`` (where ``f`` changes sign) by Brent's method.
+
+    Inverse quadratic (or secant) steps where they shrink the bracket fast enough, bisection otherwise, stopping
+    when the bracket half-width is below :math:`\\delta = (x_{tol} + r_{tol}|x|)/2` (Brent, Algorithms for
+    Minimization without Derivatives, Prentice-Hall 1973, ch. 4). The steps are those of
+    ``scipy.optimize.brentq``, so the root is the same double (tests/test_linefit.py checks it bit for bit); here,
+    because importing scipy.optimize costs ~0.2 s of a cold ranking that needs nothing else from it.
+
+    Raises
+    ------
+    ValueError
+        ``f(a)`` and ``f(b)`` have the same sign.
+    RuntimeError
+        No convergence in ``maxiter`` steps.
+    """
+    x_prev, x_cur = a, b
+    f_prev, f_cur = f(x_prev), f(x_cur)
+    if f_prev == 0:
+        return float(x_prev)
+    if f_cur == 0:
+        return float(x_cur)
+    if math.copysign(1.0, f_prev) == math.copysign(1.0, f_cur):
+        raise ValueError("f(a) and f(b) must have different signs")
+    # x_far is the other end of the bracket; s_cur and s_prev are the last two steps.
+    x_far = f_far = s_prev = s_cur = 0.0
+    for _ in range(maxiter):
+        if f_prev != 0 and f_cur != 0 and math.copysign(1.0, f_prev) != math.copysign(1.0, f_cur):
+            x_far, f_far = x_prev, f_prev
+            s_prev = s_cur = x_cur - x_prev
+        if abs(f_far) < abs(f_cur):  # keep the best estimate in x_cur
+            x_prev, x_cur, x_far = x_cur, x_far, x_cur
+            f_prev, f_cur, f_far = f_cur, f_far, f_cur
+        delta = (xtol + rtol * abs(x_cur)) / 2
+        s_half = (x_far - x_cur) / 2
+        if f_cur == 0 or abs(s_half) < delta:
+            return float(x_cur)
+        if abs(s_prev) > delta and abs(f_cur) < abs(f_prev):
+            if x_prev == x_far:  # secant
+                s_try = -f_cur * (x_cur - x_prev) / (f_cur - f_prev)
+            else:  # inverse quadratic interpolation
+                d_prev = (f_prev - f_cur) / (x_prev - x_cur)
+                d_far = (f_far - f_cur) / (x_far - x_cur)
+                s_try = -f_cur * (f_far * d_far - f_prev * d_prev) / (d_far * d_prev * (f_far - f_prev))
+            if 2 * abs(s_try) < min(abs(s_prev), 3 * abs(s_half) - delta):
+                s_prev, s_cur = s_cur, s_try
+            else:
+                s_prev = s_cur = s_half
+        else:
+            s_prev = s_cur = s_half
+        x_prev, f_prev = x_cur, f_cur
+        x_cur += s_cur if abs(s_cur) > delta else (delta if s_half > 0 else -delta)
+        f_cur = f(x_cur)
+    raise RuntimeError(f"no root within tolerance after {maxiter} steps")
 
 
 #: How scatter beyond the stated errors enters a weighted line (see :func:`fit_line`).
@@ -135,10 +196,8 @@ def fit_line(x, y, y_se=None, scatter: str = "paule-mandel"):
         # every point, not a multiple of each point's own error: solve sum w_i r_i^2 = nu with w_i = 1/(se_i^2 +
         # tau^2) (Paule and Mandel 1982). Scaling the covariance instead would let the few most precise points
         # carry the fit and give intervals that cover too rarely.
-        from scipy import optimize  # deferred: ~0.3 s to import; a warm ranking reads Ea from the cache
-
         upper = float(np.var(y) * 10 + var.max())
-        tau2 = optimize.brentq(lambda t2: _weighted_line(x, y, var + t2)[0] - dof, 0.0, upper, xtol=1e-14 * upper)
+        tau2 = brent_root(lambda t2: _weighted_line(x, y, var + t2)[0] - dof, 0.0, upper, xtol=1e-14 * upper)
     chi2, intercept, slope, sw, x_bar, y_bar, sxx, w = _weighted_line(x, y, var + tau2)
     tss = float((w * (y - y_bar) ** 2).sum())
     if weighted:

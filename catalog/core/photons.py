@@ -3,7 +3,8 @@
 from __future__ import annotations
 
 import numpy as np
-from scipy.constants import N_A, c, h
+
+from catalog.core.constants import N_A, c, h
 
 __all__ = ["apparent_quantum_yield", "photon_flux"]
 

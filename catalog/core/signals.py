@@ -8,7 +8,8 @@ from __future__ import annotations
 
 import numpy as np
 import periodictable
-from scipy.constants import R
+
+from catalog.core.constants import R
 
 __all__ = [
     "amount_from_concentration",
@@ -99,6 +100,11 @@ def molar_mass(formula):
     ValueError
         If the formula cannot be parsed or names an unknown element.
     """
+    # A bare element symbol (a catalyst's metal) is looked up directly: periodictable builds its formula grammar on
+    # first use (measured ~0.09 s of a cold analysis), and a one-atom formula's mass is that element's mass.
+    element = getattr(periodictable.elements, formula, None) if isinstance(formula, str) else None
+    if isinstance(element, periodictable.core.Element) and element.number > 0:
+        return element.mass * 1e-3
     try:
         parsed = periodictable.formula(formula)
     # periodictable reports bad input with its parser's own exception types, which are not part of its API.
@@ -107,6 +113,19 @@ def molar_mass(formula):
     if not parsed.atoms:
         raise ValueError(f"cannot read chemical formula {formula!r}")
     return parsed.mass * 1e-3  # periodictable gives g/mol
+
+
+def _once_per_run(func, x: np.ndarray) -> np.ndarray:
+    """``func(x)`` for an elementwise ``func``, evaluated once per run of equal values of a 1-D ``x``.
+
+    A trace gathers its trial's gas temperature at every reading, so a campaign's 2×10^6 readings hold a few
+    thousand runs: the saturation equation on the runs, repeated, gives the same values (numpy's array loops do
+    not depend on an element's position; checked bit for bit) at a fraction of the cost (measured 0.2 s → 5 ms).
+    """
+    if x.ndim != 1 or x.size < 2:
+        return func(x)
+    starts = np.flatnonzero(np.concatenate(([True], x[1:] != x[:-1])))
+    return np.repeat(func(x[starts]), np.diff(np.append(starts, x.size)))
 
 
 def amount_from_gas_volume(V, p_gas, T_gas, over_water=False):
@@ -136,7 +155,7 @@ def amount_from_gas_volume(V, p_gas, T_gas, over_water=False):
     T_gas = np.asarray(T_gas, dtype=float)
     over_water = np.asarray(over_water, dtype=bool)
     # Only evaluate the vapour equation where it is needed, so a dry collection at an odd temperature never raises.
-    p_w = water_vapour_pressure(T_gas) if np.any(over_water) else 0.0
+    p_w = _once_per_run(water_vapour_pressure, T_gas) if np.any(over_water) else 0.0
     partial = np.asarray(p_gas, dtype=float) - over_water * p_w
     return partial * np.asarray(V, dtype=float) / (R * T_gas)
 

@@ -18,11 +18,13 @@ from catalog.store.corrections import PURGED, Change, correct, exclude, history,
 from catalog.store.db import DEFAULT_DB, ENV_DB, connect, resolve_path, session
 from catalog.store.importer import ImportReport, import_campaign
 from catalog.store.queries import (
+    PointArrays,
     data_stamp,
     list_catalysts,
     list_imports,
     list_trials,
     load_campaign,
+    load_point_arrays,
     load_points,
     load_records,
     load_trace,
@@ -31,8 +33,9 @@ from catalog.store.queries import (
 )
 
 __all__ = [
-    "BACKUP_MANIFEST", "DEFAULT_DB", "ENV_DB", "PURGED", "Change", "ImportReport", "backup", "connect", "correct",
-    "data_stamp", "exclude", "history", "import_campaign", "include", "list_catalysts", "list_imports", "list_trials",
-    "load_campaign", "load_fits", "load_points", "load_records", "load_run", "load_trace", "point_blocks", "purge",
-    "purge_import", "resolve_path", "restore", "run_frames", "save_run", "session", "table_counts",
+    "BACKUP_MANIFEST", "DEFAULT_DB", "ENV_DB", "PURGED", "Change", "ImportReport", "PointArrays", "backup", "connect",
+    "correct", "data_stamp", "exclude", "history", "import_campaign", "include", "list_catalysts", "list_imports",
+    "list_trials", "load_campaign", "load_fits", "load_point_arrays", "load_points", "load_records", "load_run",
+    "load_trace", "point_blocks", "purge", "purge_import", "resolve_path", "restore", "run_frames", "save_run",
+    "session", "table_counts",
 ]

@@ -3,7 +3,9 @@
 from __future__ import annotations
 
 import hashlib
+from dataclasses import dataclass
 
+import numpy as np
 import pandas as pd
 
 from catalog.store.db import Store, session
@@ -76,20 +78,69 @@ def load_records(db: Store = None) -> tuple[pd.DataFrame, pd.DataFrame]:
     return catalysts, trials
 
 
-def load_points(db: Store, trial_ids=None) -> pd.DataFrame:
-    """Trace points ``trial_id, t, value`` (SI) of the given trials, or of every included trial; sorted by trial, t.
-
-    Reading a campaign's points a block of trials at a time keeps the memory of a 10^7-point analysis bounded.
-    """
+def load_points(db: Store = None) -> pd.DataFrame:
+    """Trace points ``trial_id, t, value`` (SI) of every included trial, sorted by trial and time."""
     with session(db) as con:
-        if trial_ids is None:
-            return con.execute(
-                """SELECT p.trial_id, p.t, p.value FROM trace_points p
-                   JOIN trials t USING (trial_id) WHERE NOT t.excluded ORDER BY p.trial_id, p.t""").df()
-        con.register("wanted", pd.DataFrame({"trial_id": pd.Series(list(trial_ids), dtype=object)}))
         return con.execute(
-            """SELECT p.trial_id, p.t, p.value FROM trace_points p SEMI JOIN wanted w ON p.trial_id = w.trial_id
-               ORDER BY p.trial_id, p.t""").df()
+            """SELECT p.trial_id, p.t, p.value FROM trace_points p
+               JOIN trials t USING (trial_id) WHERE NOT t.excluded ORDER BY p.trial_id, p.t""").df()
+
+
+@dataclass(frozen=True)
+class PointArrays:
+    """The trace points of a group of trials as flat arrays: each trial's points together, in time order.
+
+    Attributes
+    ----------
+    trial_ids : list of str
+        The trials that have points, in the order they were asked for.
+    counts : int ndarray
+        Number of points of each of those trials.
+    t, value : float ndarray
+        Time (s) and value (SI) of every point, trial after trial.
+    """
+
+    trial_ids: list[str]
+    counts: np.ndarray
+    t: np.ndarray
+    value: np.ndarray
+
+    @property
+    def codes(self) -> np.ndarray:
+        """Position of each point's trial in ``trial_ids``."""
+        return np.repeat(np.arange(len(self.counts)), self.counts)
+
+
+def load_point_arrays(db: Store, trial_ids) -> PointArrays:
+    """Trace points of the given trials as arrays, trial by trial in the order given, each in time order.
+
+    The trials travel into the query with their position, and the points come back as numbers only: position, t,
+    value. They are read on one thread, which keeps the rows in storage order, and an import stores each trial's
+    points together in time order; so they are checked for order and sorted here only when they are not (points
+    added to a trial by a later import, say). Measured at 2×10^6 points: 0.09-0.13 s, against 0.26-0.65 s for
+    the same read sorted by DuckDB and ~0.6 s for the long table with a trial id string per point.
+    """
+    asked = pd.DataFrame({"trial_id": pd.Series(list(trial_ids), dtype=object)})
+    asked["position"] = np.arange(len(asked), dtype=np.int64)
+    with session(db) as con:
+        threads = con.execute("SELECT current_setting('threads')").fetchall()[0][0]
+        con.register("asked", asked)
+        con.execute("SET threads = 1")
+        try:
+            got = con.execute(
+                "SELECT a.position, p.t, p.value FROM trace_points p JOIN asked a USING (trial_id)").fetchnumpy()
+        finally:
+            con.execute("SET threads = ?", [threads])
+            con.unregister("asked")
+    position = np.asarray(got["position"], dtype=np.int64)
+    t, value = np.asarray(got["t"], dtype=float), np.asarray(got["value"], dtype=float)
+    step = np.diff(position)
+    if not ((step > 0) | ((step == 0) & (np.diff(t) > 0))).all():
+        order = np.lexsort((t, position))
+        position, t, value = position[order], t[order], value[order]
+    counts = np.bincount(position, minlength=len(asked))
+    have = counts > 0
+    return PointArrays(asked["trial_id"][have].tolist(), counts[have], t, value)
 
 
 def point_blocks(db: Store, trial_ids, max_points: int) -> list[list[str]]:
@@ -100,6 +151,10 @@ def point_blocks(db: Store, trial_ids, max_points: int) -> list[list[str]]:
     """
     wanted = pd.DataFrame({"trial_id": pd.Series(list(trial_ids), dtype=object)})
     with session(db) as con:
+        # When the whole trace table fits in one block, so do the trials asked for: no need to count their points
+        # (a grouped count over 2×10^6 rows, ~35 ms).
+        if con.execute("SELECT count(*) FROM trace_points").fetchall()[0][0] <= max_points:
+            return [list(wanted["trial_id"])] if len(wanted) else []
         con.register("wanted", wanted)
         counts = dict(con.execute(
             "SELECT trial_id, count(*) FROM trace_points SEMI JOIN wanted USING (trial_id) GROUP BY trial_id"
