@@ -29,7 +29,7 @@ import numpy as np
 import pandas as pd
 
 from catalog.core import trace_shape
-from catalog.core.plateau_fit import FULL_GRID, fit_full_batch, profile_rss
+from catalog.core.plateau_fit import FULL_GRID, bracketed_newton, fit_full_batch, profile_rss
 from catalog.core.rate_laws import (
     CHANGE_POINT_PENALTY,
     CODES,
@@ -190,19 +190,12 @@ def _fit_curved(model, U, Y, W, n, eligible, grid, sy, offset=True) -> ModelFit:
     hi = np.where(right, CURVATURE_GRID[np.minimum(i + 1, last)], x)
     done = ((i == 0) & ~right) | ((i == last) & right) | (phi == 0) | ~eligible | ~np.isfinite(grid.min(axis=1))
     at_bound = (i == last) & right
-    for _ in range(_NEWTON_STEPS):
-        act = np.flatnonzero(~done)
-        if act.size == 0:
-            break
-        xa, pa, da, la, ha = x[act], phi[act], dphi[act], lo[act], hi[act]
-        newton = xa - pa / da
-        good = (da > 0) & (newton > la) & (newton < ha)
-        xn = np.where(good, newton, 0.5 * (la + ha))
-        done[act] = np.abs(xn - xa) <= 1e-12 * xa + 1e-15
-        x[act] = xn
-        _, _, phi[act], dphi[act], _, _ = _profile(model, xn, U[act], Y[act], n[act], sy[act], offset)
-        lo[act] = np.where(phi[act] < 0, xn, la)
-        hi[act] = np.where(phi[act] < 0, ha, xn)
+
+    def terms(xk, Uk, Yk, nk, syk):
+        return _profile(model, xk, Uk, Yk, nk, syk, offset)[2:4]
+
+    x = bracketed_newton(terms, x, phi, dphi, lo, hi, done, (U, Y, n, sy), _NEWTON_STEPS,
+                         lambda xn, xa: np.abs(xn - xa) <= 1e-12 * xa + 1e-15, lambda la, ha: 0.5 * (la + ha))
     x = np.where(x < CURVATURE_LINE, 0.0, x)
     g, d = curvature_basis(model, x[:, None], U, 1)
     g, d = np.where(W, g, 0.0), np.where(W, d, 0.0)

@@ -29,7 +29,7 @@ from scipy.optimize import minimize_scalar
 
 from catalog.core.rate_laws import CURVATURE_MAX, ModelFit, covariance, curvature_basis
 
-__all__ = ["FULL_GRID", "fit_full", "fit_full_batch", "profile_rss"]
+__all__ = ["FULL_GRID", "bracketed_newton", "fit_full", "fit_full_batch", "profile_rss"]
 
 #: dimensionless curvature grid of the fixed-plateau fits: 2 points a decade from 1e-6 to 1e3 (the profile is
 #: smooth and unimodal in log kappa; the refinement brackets the best point by its neighbours)
@@ -123,6 +123,42 @@ def _newton_terms(model, kappa, U, Y, W, n, m, offset):
     return phi, dphi
 
 
+def bracketed_newton(terms, x, phi, dphi, lo, hi, done, rows, steps, converged, bisect):
+    """Safeguarded Newton on phi(x) = 0, row by row, inside each row's bracket [lo, hi] (updated in place with x).
+
+    ``terms(x, *rows)`` gives (phi, phi') at per-row x for the row arrays ``rows`` (2-D, one row per trial);
+    ``converged(x_new, x_old)`` ends a row, ``bisect(lo, hi)`` is the fallback step whenever a Newton step leaves
+    the bracket or phi' <= 0. A row is evaluated only while it needs another step, and the row arrays are
+    compacted to the rows still running only when half of them have finished, so the iterations neither copy the
+    arrays on every step nor evaluate many finished rows.
+    """
+    work, sub = np.flatnonzero(~done), [a[~done] for a in rows]
+    for _ in range(steps):
+        act = np.flatnonzero(~done)
+        if act.size == 0:
+            break
+        xa, la, ha = x[act], lo[act], hi[act]
+        step = xa - phi[act] / dphi[act]
+        good = (dphi[act] > 0) & (step > la) & (step < ha)
+        xn = np.where(good, step, bisect(la, ha))
+        done[act] = converged(xn, xa)
+        x[act] = xn
+        act = act[~done[act]]
+        if act.size == 0:
+            break
+        if 2 * act.size <= work.size:
+            sub = [a[act] for a in rows]
+            work = act
+        # the finished rows still in the working set are evaluated at their final x; their terms are discarded
+        p, dp = terms(x[work], *sub)
+        running = ~done[work]
+        phi[act], dphi[act] = p[running], dp[running]
+        below = phi[act] < 0
+        lo[act] = np.where(below, x[act], lo[act])
+        hi[act] = np.where(below, hi[act], x[act])
+    return x
+
+
 def fit_full_batch(model: str, U, Y, W, n, m, offset: bool, eligible, grid=None) -> ModelFit:
     """Vectorised fixed-plateau fits of padded normalised rows; ``m`` is each row's plateau in units of y.
 
@@ -142,17 +178,11 @@ def fit_full_batch(model: str, U, Y, W, n, m, offset: bool, eligible, grid=None)
     lo = np.where(phi < 0, x, lo)
     hi = np.where(phi < 0, hi, x)
     done = ~ok | (phi == 0) | ((i == 0) & (phi > 0)) | ((i == last) & (phi < 0))
-    for _ in range(_NEWTON_STEPS):
-        act = np.flatnonzero(~done)
-        if act.size == 0:
-            break
-        xa, la, ha = x[act], lo[act], hi[act]
-        step = xa - phi[act] / dphi[act]
-        good = (dphi[act] > 0) & (step > la) & (step < ha)
-        xn = np.where(good, step, np.sqrt(la * ha))  # geometric bisection: the grid is geometric
-        done[act] = np.abs(xn - xa) <= 1e-13 * xa
-        x[act] = xn
-        phi[act], dphi[act] = _newton_terms(model, xn, U[act], Y[act], W[act], n[act], mm[act], offset)
-        lo[act] = np.where(phi[act] < 0, xn, la)
-        hi[act] = np.where(phi[act] < 0, ha, xn)
+
+    def terms(xk, Uk, Yk, Wk, nk, mk):
+        return _newton_terms(model, xk, Uk, Yk, Wk, nk, mk, offset)
+
+    # geometric bisection: the grid is geometric
+    x = bracketed_newton(terms, x, phi, dphi, lo, hi, done, (U, Y, W, n, mm), _NEWTON_STEPS,
+                         lambda xn, xa: np.abs(xn - xa) <= 1e-13 * xa, lambda la, ha: np.sqrt(la * ha))
     return _pack(model, np.where(ok, x, 1.0), U, Y, W, n, mm, offset, ok)

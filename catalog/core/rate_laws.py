@@ -148,7 +148,35 @@ def curvature_basis(model: str, kappa, u, derivatives: int = 0) -> tuple:
         # only the derivatives asked for: g**3 costs more than the basis itself
         return (g,) + ((-g * g,) if derivatives >= 1 else ()) + ((2.0 * g**3,) if derivatives >= 2 else ())
     x = kappa * u
+    phis = _phi(x, u, derivatives)
+    phis[0] *= u
+    if derivatives >= 1:
+        phis[1] *= u * u
+    if derivatives >= 2:
+        phis[2] *= u**3
+    return tuple(phis)
+
+
+def _horner(x, coef):
+    """Power series sum coef[i] x^i by Horner's rule, in place (the operations of numpy's polyval)."""
+    out = np.full(x.shape, coef[-1])
+    for c in coef[-2::-1]:
+        out *= x
+        out += c
+    return out
+
+
+def _phi(x, u, derivatives):
+    """phi(x), phi'(x), phi''(x) of curvature_basis: closed forms, the series where they cancel.
+
+    Where every x is small (small kappa, e.g. the low end of the curvature grids) the series alone is summed. Else
+    the series is needed only where x is small and u is not zero: at u = 0 (the first reading, padding) the basis
+    is phi u^(k+1) = 0 whatever phi is, so the closed form's placeholder value there drops out exactly.
+    """
+    coefs = (_PHI1, _PHI1_D1, _PHI1_D2)[: derivatives + 1]
     small = np.abs(x) < _SERIES_BELOW
+    if small.all():
+        return [_horner(x, c) for c in coefs]
     xs = np.where(small, 1.0, x)  # placeholder where the series takes over
     # in place: these arrays are the fits' hottest temporaries
     neg = np.negative(xs, out=np.empty(x.shape))  # out=: arrays even for 0-d input, so the updates stay in place
@@ -167,16 +195,12 @@ def curvature_basis(model: str, kappa, u, derivatives: int = 0) -> tuple:
         np.negative(phi2, out=phi2)
         phi2 /= xs
         phis.append(phi2)
+    small &= u != 0
     if small.any():
         xsmall = x[small]
-        for phi, coef in zip(phis, (_PHI1, _PHI1_D1, _PHI1_D2), strict=False):
-            phi[small] = np.polynomial.polynomial.polyval(xsmall, coef)
-    phi0 *= u
-    if derivatives >= 1:
-        phi1 *= u * u
-    if derivatives >= 2:
-        phi2 *= u**3
-    return tuple(phis)
+        for phi, coef in zip(phis, coefs, strict=False):
+            phi[small] = _horner(xsmall, coef)
+    return phis
 
 
 def shape(code, u, theta) -> np.ndarray:
