@@ -29,7 +29,7 @@ import numpy as np
 import pandas as pd
 
 from catalog.core import trace_shape
-from catalog.core.plateau_fit import FULL_GRID, bracketed_newton, fit_full_batch, profile_rss
+from catalog.core.plateau_fit import FULL_GRID, STEP_TOL, bracketed_newton, fit_full_batch, profile_rss
 from catalog.core.rate_laws import (
     CHANGE_POINT_PENALTY,
     CODES,
@@ -195,7 +195,7 @@ def _fit_curved(model, U, Y, W, n, eligible, grid, sy, offset=True) -> ModelFit:
         return _profile(model, xk, Uk, Yk, nk, syk, offset)[2:4]
 
     x = bracketed_newton(terms, x, phi, dphi, lo, hi, done, (U, Y, n, sy), _NEWTON_STEPS,
-                         lambda xn, xa: np.abs(xn - xa) <= 1e-12 * xa + 1e-15, lambda la, ha: 0.5 * (la + ha))
+                         lambda xn, xa: np.abs(xn - xa) <= STEP_TOL * xa + 1e-15, lambda la, ha: 0.5 * (la + ha))
     x = np.where(x < CURVATURE_LINE, 0.0, x)
     g, d = curvature_basis(model, x[:, None], U, 1)
     g, d = np.where(W, g, 0.0), np.where(W, d, 0.0)

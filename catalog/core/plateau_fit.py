@@ -29,12 +29,15 @@ from scipy.optimize import minimize_scalar
 
 from catalog.core.rate_laws import CURVATURE_MAX, ModelFit, covariance, curvature_basis
 
-__all__ = ["FULL_GRID", "bracketed_newton", "fit_full", "fit_full_batch", "profile_rss"]
+__all__ = ["FULL_GRID", "STEP_TOL", "bracketed_newton", "fit_full", "fit_full_batch", "profile_rss"]
 
 #: dimensionless curvature grid of the fixed-plateau fits: 2 points a decade from 1e-6 to 1e3 (the profile is
 #: smooth and unimodal in log kappa; the refinement brackets the best point by its neighbours)
 FULL_GRID = np.geomspace(1e-6, 1e3, 19)
 _NEWTON_STEPS = 40
+#: Newton on dRSS/dkappa converges quadratically: after a step of relative size 1e-7 the next would be ~1e-14, below
+#: anything reported (r0 and its SE move by ~1e-13 relative), so a row stops once its step is this small
+STEP_TOL = 1e-7
 
 
 def _h(model, kappa, U):
@@ -140,7 +143,10 @@ def bracketed_newton(terms, x, phi, dphi, lo, hi, done, rows, steps, converged, 
         xa, la, ha = x[act], lo[act], hi[act]
         step = xa - phi[act] / dphi[act]
         good = (dphi[act] > 0) & (step > la) & (step < ha)
-        xn = np.where(good, step, bisect(la, ha))
+        # a Newton step that would not move the row is its root, even on the bracket's end (phi rounded to 0 or
+        # just past it): taken, not replaced by a bisection that would leave the root
+        still = (dphi[act] > 0) & converged(step, xa)
+        xn = np.where(good, step, np.where(still, np.clip(step, la, ha), bisect(la, ha)))
         done[act] = converged(xn, xa)
         x[act] = xn
         act = act[~done[act]]
@@ -184,5 +190,5 @@ def fit_full_batch(model: str, U, Y, W, n, m, offset: bool, eligible, grid=None)
 
     # geometric bisection: the grid is geometric
     x = bracketed_newton(terms, x, phi, dphi, lo, hi, done, (U, Y, W, n, mm), _NEWTON_STEPS,
-                         lambda xn, xa: np.abs(xn - xa) <= 1e-13 * xa, lambda la, ha: np.sqrt(la * ha))
+                         lambda xn, xa: np.abs(xn - xa) <= STEP_TOL * xa, lambda la, ha: np.sqrt(la * ha))
     return _pack(model, np.where(ok, x, 1.0), U, Y, W, n, mm, offset, ok)
