@@ -58,6 +58,9 @@ COLUMNS = SCALAR_FIELDS + tuple(f"aic_{m}" for m in MODELS)
 #: one chunk (0.5 MB each) stay in cache; 1,000,000 (8 MB temporaries) ran 1.6x slower at 10,000 x 200
 CHUNK_POINTS = 60_000
 _NEWTON_STEPS = 60
+#: a trace whose best grid RSS is below this fraction of its centred sum of squares gets its grids from the
+#: residuals: the sums' rounding (~1e-16 of S_yy) is then no longer far below the RSS differences argmin compares
+_SUMS_EXACT = 1e-6
 
 
 def _rowsum(a, b=None):
@@ -159,9 +162,54 @@ def _profile(model, kappa, U, Y, n, sy, offset=True):
     return alpha, rho, phi, dphi, g, d
 
 
-def _grids(model, U, Y, W, n, sy, m_full, offset=True):
-    """Profile RSS of the free-plateau fit on CURVATURE_GRID and, if ``m_full`` is given, of the fixed-plateau fit
-    on FULL_GRID; the basis is evaluated once where the two grids share a point."""
+def _grids(model, U, Y, W, n, sy, syy, m_full, offset=True):
+    r"""Profile RSS of the free-plateau fit on CURVATURE_GRID and, if ``m_full`` is given, of the fixed-plateau fit
+    on FULL_GRID; the basis is evaluated once where the two grids share a point.
+
+    The RSS comes from three sums per grid point, with the centred sums S_xy = sum xy - sum x sum y / n:
+
+    .. math:: \mathrm{RSS}_\mathrm{free} = S_{yy} - S_{gy}^2 / S_{gg},\qquad
+              \mathrm{RSS}_\mathrm{full} = S_{yy} - 2 m\kappa S_{gy} + (m\kappa)^2 S_{gg}
+
+    (plain sums without the offset). The differences cancel to about 1e-16 S_yy, which only the grid's argmin
+    sees; for rows whose best fit comes within :data:`_SUMS_EXACT` of S_yy (a near-exact trace, where that error
+    could reorder the grid) the grids are recomputed from the residuals (:func:`_grids_from_residuals`).
+    """
+    rows = U.shape[0]
+    free = np.empty((rows, CURVATURE_GRID.size))
+    full = None if m_full is None else np.empty((rows, FULL_GRID.size))
+    kappas = CURVATURE_GRID if m_full is None else np.union1d(CURVATURE_GRID, FULL_GRID)
+    nn = np.maximum(n, 1)
+    syy_c = syy - sy * sy / nn if offset else syy
+    for kappa in kappas:
+        g = curvature_basis(model, kappa, U)[0]
+        sg, sgg, sgy = _rowsum(g), _rowsum(g, g), _rowsum(g, Y)
+        sgy_c, sgg_c = (sgy - sg * sy / nn, sgg - sg * sg / nn) if offset else (sgy, sgg)
+        q = np.flatnonzero(CURVATURE_GRID == kappa)
+        if q.size:
+            # the singular-design rule of _fit_line_at: g constant over the readings has no fit
+            det = n * sgg - sg * sg if offset else sgg
+            good = det > 1e-13 * np.maximum(n * sgg, 1e-300)
+            free[:, q[0]] = np.where(good, syy_c - sgy_c * sgy_c / sgg_c, np.inf)
+        q = np.flatnonzero(FULL_GRID == kappa) if full is not None else q[:0]
+        if q.size:
+            mk = m_full * kappa
+            full[:, q[0]] = syy_c - 2 * mk * sgy_c + mk * mk * sgg_c
+    grids = (free,) if full is None else (free, full)
+    for grid in grids:
+        grid[~np.isfinite(grid)] = np.inf
+    best = np.min(free, axis=1) if full is None else np.minimum(free.min(axis=1), np.min(full, axis=1))
+    exact = ~(best > _SUMS_EXACT * syy_c)
+    if exact.any():
+        sub = _grids_from_residuals(model, U[exact], Y[exact], W[exact], n[exact], sy[exact],
+                                    None if m_full is None else m_full[exact], offset)
+        for grid, part in zip(grids, sub, strict=False):
+            grid[exact] = part
+    return free, full
+
+
+def _grids_from_residuals(model, U, Y, W, n, sy, m_full, offset=True):
+    """:func:`_grids` with every RSS from the residuals themselves (exact to rounding even for a near-exact fit)."""
     free = np.empty((U.shape[0], CURVATURE_GRID.size))
     full = None if m_full is None else np.empty((U.shape[0], FULL_GRID.size))
     kappas = CURVATURE_GRID if m_full is None else np.union1d(CURVATURE_GRID, FULL_GRID)
@@ -169,8 +217,8 @@ def _grids(model, U, Y, W, n, sy, m_full, offset=True):
         g = curvature_basis(model, kappa, U)[0]
         q = np.flatnonzero(CURVATURE_GRID == kappa)
         if q.size:
-            # RSS from the residuals, never from syy - alpha sy - rho sgy: that difference cancels to a negative
-            # (or, with a singular design, -inf) value, which argmin would take as the best fit.
+            # never from syy - alpha sy - rho sgy here: that difference cancels to a negative (or, with a singular
+            # design, -inf) value, which argmin would take as the best fit.
             free[:, q[0]] = _fit_line_at(g, Y, W, n, offset, sy)[2]
         q = np.flatnonzero(FULL_GRID == kappa) if full is not None else q[:0]
         if q.size:
@@ -210,7 +258,7 @@ def _fit_chunk(T, Yr, W, n_max, models, offset=True) -> dict:
     max_rate, induction_z = trace_shape.induction(T, Yr, W)
     U, Y, c, s, tmax = normalise(T, Yr, W, offset)
     n = W.sum(axis=1).astype(float)
-    sy = _rowsum(Y)
+    sy, syy = _rowsum(Y), _rowsum(Y, Y)
     eligible = model_eligible(U, W, n, tmax)
     fits = {}
     for mo in models:
@@ -218,7 +266,7 @@ def _fit_chunk(T, Yr, W, n_max, models, offset=True) -> dict:
             fits |= _fit_zero(U, Y, W, n, eligible, offset)
             continue
         known = np.isfinite(n_max) & (n_max > 0)
-        grid, full_grid = _grids(mo, U, Y, W, n, sy, n_max / s if known.any() else None, offset)
+        grid, full_grid = _grids(mo, U, Y, W, n, sy, syy, n_max / s if known.any() else None, offset)
         fits[mo] = _fit_curved(mo, U, Y, W, n, eligible, grid, sy, offset)
         if known.any():
             fits[f"{mo}_full"] = fit_full_batch(mo, U, Y, W, n, n_max / s, offset, eligible & known, full_grid)
