@@ -29,7 +29,7 @@ import numpy as np
 import pandas as pd
 
 from catalog.core import trace_shape
-from catalog.core.plateau_fit import FULL_GRID, STEP_TOL, bracketed_newton, fit_full_batch, profile_rss
+from catalog.core.plateau_fit import FULL_GRID, STEP_TOL, bracketed_newton, fit_full_batch, parabolic_start, profile_rss
 from catalog.core.rate_laws import (
     CHANGE_POINT_PENALTY,
     CODES,
@@ -230,9 +230,9 @@ def _fit_curved(model, U, Y, W, n, eligible, grid, sy, offset=True) -> ModelFit:
     """Free-plateau fit refined from its profile RSS ``grid`` on CURVATURE_GRID (:func:`_grids`)."""
     i = np.argmin(np.where(np.isnan(grid), np.inf, grid), axis=1)
     last = CURVATURE_GRID.size - 1
-    x = CURVATURE_GRID[i]
+    x = parabolic_start(grid, i, CURVATURE_GRID)
     _, _, phi, dphi, _, _ = _profile(model, x, U, Y, n, sy, offset)
-    # the minimum lies on the downhill side of the best grid point
+    # the minimum lies on the downhill side of the start, within the two cells around the best grid point
     right = phi < 0
     lo = np.where(right, x, CURVATURE_GRID[np.maximum(i - 1, 0)])
     hi = np.where(right, CURVATURE_GRID[np.minimum(i + 1, last)], x)

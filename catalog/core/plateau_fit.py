@@ -29,7 +29,7 @@ from scipy.optimize import minimize_scalar
 
 from catalog.core.rate_laws import CURVATURE_MAX, ModelFit, covariance, curvature_basis
 
-__all__ = ["FULL_GRID", "STEP_TOL", "bracketed_newton", "fit_full", "fit_full_batch", "profile_rss"]
+__all__ = ["FULL_GRID", "STEP_TOL", "bracketed_newton", "parabolic_start", "fit_full", "fit_full_batch", "profile_rss"]
 
 #: dimensionless curvature grid of the fixed-plateau fits: 2 points a decade from 1e-6 to 1e3 (the profile is
 #: smooth and unimodal in log kappa; the refinement brackets the best point by its neighbours)
@@ -165,6 +165,25 @@ def bracketed_newton(terms, x, phi, dphi, lo, hi, done, rows, steps, converged, 
     return x
 
 
+def parabolic_start(grid, i, kappas):
+    """Per-row start for Newton: the vertex, in log kappa, of the parabola through the best grid point i and its two
+    neighbours, kept inside their cells; the grid point itself at the grid's ends, next to kappa = 0 or where the
+    three values are not finite and convex. (About twice as close as the grid point: one Newton step fewer.)
+    """
+    rows = np.arange(len(i))
+    last = kappas.size - 1
+    im, ip = np.clip(i - 1, 0, last), np.clip(i + 1, 0, last)
+    usable = (i > 0) & (i < last) & (kappas[im] > 0)
+    a, b, c = (np.log(np.where(usable, kappas[j], 1.0)) for j in (im, i, ip))
+    fa, fb, fc = grid[rows, im], grid[rows, i], grid[rows, ip]
+    num = (b - a) ** 2 * (fb - fc) - (b - c) ** 2 * (fb - fa)
+    den = (b - a) * (fb - fc) - (b - c) * (fb - fa)
+    usable &= np.isfinite(fa) & np.isfinite(fb) & np.isfinite(fc) & (den < 0)
+    step = np.where(usable, -0.5 * num / np.where(usable, den, 1.0), 0.0)
+    step = np.clip(step, 0.9 * (a - b), 0.9 * (c - b))
+    return np.where(usable, np.exp(b + step), kappas[i])
+
+
 def fit_full_batch(model: str, U, Y, W, n, m, offset: bool, eligible, grid=None) -> ModelFit:
     """Vectorised fixed-plateau fits of padded normalised rows; ``m`` is each row's plateau in units of y.
 
@@ -177,7 +196,7 @@ def fit_full_batch(model: str, U, Y, W, n, m, offset: bool, eligible, grid=None)
     i = np.argmin(grid, axis=1)
     last = FULL_GRID.size - 1
     lo, hi = FULL_GRID[np.maximum(i - 1, 0)], FULL_GRID[np.minimum(i + 1, last)]
-    x = FULL_GRID[i].copy()
+    x = parabolic_start(grid, i, FULL_GRID)
     ok = eligible & np.isfinite(m) & (m > 0) & np.isfinite(grid.min(axis=1))
     mm = np.where(ok, m, 1.0)
     phi, dphi = _newton_terms(model, x, U, Y, W, n, mm, offset)
