@@ -18,14 +18,14 @@ the (alpha, rho, theta) layout of :class:`catalog.core.rate_laws.ModelFit` with
 
 (the offset column dropped when the offset is not fitted). The profile RSS(kappa) is scanned on
 :data:`FULL_GRID` (down to 1e-6, for blanks that convert a fraction of a per cent) and refined inside the two cells
-around the best grid point: by ``scipy.optimize.minimize_scalar`` in the reference (:func:`fit_full`), by
+around the best grid point: by ``scipy.optimize.minimize_scalar`` in the reference (:func:`fit_full`, which alone
+imports scipy.optimize), by
 vectorised safeguarded Newton on dRSS/dkappa in the batch path (:func:`fit_full_batch`).
 """
 
 from __future__ import annotations
 
 import numpy as np
-from scipy.optimize import minimize_scalar
 
 from catalog.core.rate_laws import CURVATURE_MAX, ModelFit, covariance, curvature_basis
 
@@ -89,6 +89,9 @@ def profile_rss(model, kappa, U, Y, W, n, m, offset, g=None):
 
 def fit_full(model: str, u, y, m: float, offset: bool = True) -> ModelFit:
     """Reference fixed-plateau fit of one normalised trace (u, y), plateau m in units of y."""
+    # deferred: the batch path never needs scipy.optimize (0.3 s to import)
+    from scipy.optimize import minimize_scalar
+
     U, Y, W = u[None, :], y[None, :], np.ones((1, len(u)), bool)
     n, mm = np.array([float(len(u))]), np.array([float(m)])
     grid = [float(profile_rss(model, k, U, Y, W, n, mm, offset)[0]) for k in FULL_GRID]
