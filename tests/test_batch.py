@@ -110,3 +110,29 @@ def test_rejects_bad_codes():
         fit_traces(np.array([0.5, 1.0]), [0.0, 1.0], [0.0, 1.0], [1.0, 1.0])
     with pytest.raises(ValueError):
         fit_traces(np.array([0, 0]), [0.0, 1.0], [0.0], [1.0])
+
+
+def test_covariance_matches_numpy_inverse():
+    # reference: numpy.linalg.inv and numpy.linalg.cond (LAPACK) on random J^T J of 1-3 columns, conditioned from
+    # 1 to 1e14; the closed forms must agree to rounding x condition and make the same rcond < 1e-12 decision
+    from catalog.core.rate_laws import covariance
+
+    rng = np.random.default_rng(3)
+    for p in (1, 2, 3):
+        jac = rng.normal(size=(400, 30, p))
+        if p > 1:  # near-collinear columns for a spread of conditions, ~1/delta^2
+            jac[:, :, -1] = jac[:, :, 0] + np.geomspace(1.0, 1e-8, 400)[:, None] * jac[:, :, -1]
+        jac *= np.geomspace(1e-3, 1e3, p)  # column scales: equilibration must take them out
+        jtj = np.einsum("mki,mkj->mij", jac, jac)
+        s2 = rng.uniform(0.5, 2.0, 400)
+        got = covariance(jtj, s2)
+        d = np.sqrt(np.diagonal(jtj, axis1=1, axis2=2))
+        a = jtj / (d[:, :, None] * d[:, None, :])
+        cond = np.linalg.cond(a)
+        clear = (cond < 1e11) | (cond > 1e13)  # away from the threshold, where rounding decides either way
+        assert (np.isnan(got[:, 0, 0]) == (cond > 1e12))[clear].all()
+        ok = cond < 1e10
+        want = np.linalg.inv(a[ok]) / (d[ok, :, None] * d[ok, None, :]) * s2[ok, None, None]
+        scale = np.sqrt(np.einsum("mii,mjj->mij", np.abs(want), np.abs(want)))
+        assert (np.abs(got[ok] - want) / scale <= 1e-15 * cond[ok, None, None] + 1e-14).all()
+        assert ok.sum() > 100 and (~ok).sum() > (50 if p > 1 else -1)
