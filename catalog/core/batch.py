@@ -54,9 +54,10 @@ from catalog.core.selection import summarise
 __all__ = ["COLUMNS", "curve_values", "fit_traces"]
 
 COLUMNS = SCALAR_FIELDS + tuple(f"aic_{m}" for m in MODELS)
-#: padded elements (trials x longest trace) fitted at once: about 300 trials of 200 points, so the temporaries of
-#: one chunk (0.5 MB each) stay in cache; 1,000,000 (8 MB temporaries) ran 1.6x slower at 10,000 x 200
-CHUNK_POINTS = 60_000
+#: padded elements (trials x longest trace) fitted at once: about 600 trials of 200 points, so the temporaries of
+#: one chunk (1 MB each) stay in cache while the per-call overhead is spread over many rows; at 10,000 x 200,
+#: 60,000 ran 1.2x and 240,000 1.3x slower (1,000,000, 8 MB temporaries, 1.6x slower before the sums-based grids)
+CHUNK_POINTS = 120_000
 _NEWTON_STEPS = 60
 #: a trace whose best grid RSS is below this fraction of its centred sum of squares gets its grids from the
 #: residuals: the sums' rounding (~1e-16 of S_yy) is then no longer far below the RSS differences argmin compares
