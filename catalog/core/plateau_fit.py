@@ -103,30 +103,32 @@ def fit_full(model: str, u, y, m: float, offset: bool = True) -> ModelFit:
     return _pack(model, np.array([kappa]), U, Y, W, n, mm, offset, np.array([np.isfinite(kappa)]))
 
 
-def _newton_terms(model, kappa, U, Y, W, n, m, offset):
+def _newton_terms(model, kappa, U, Y, n, m, offset):
     """phi = dRSS/dkappa and phi' at per-row kappa (alpha profiled out; h' = g + kappa g', h'' = 2 g' + kappa g'').
 
     .. math:: \\phi = -2 m\\, h'^T r,\\qquad \\phi' = 2 m^2\\, \\lVert h' - \\bar{h'}\\rVert^2 - 2 m\\, h''^T r
+
+    from sums over the row: with z = y - m h (zero off the readings, like h' and h''), r = z - z-bar on the
+    readings, so h'^T r = h'^T z - z-bar sum h' and the centred norm is sum h'^2 - (sum h')^2 / n.
     """
     kap = kappa[:, None]
     # zero off the readings without a mask: U = Y = 0 there, g(0) and its derivatives vanish, kappa and m are finite
     g, d, e = curvature_basis(model, kap, U, 2)
-    h = kap * g
-    dh = kap * d
-    dh += g
-    ddh = kap * e
+    z = kap * g
+    z *= m[:, None]
+    np.subtract(Y, z, out=z)
+    ddh = np.multiply(kap, e, out=e)
     ddh += 2 * d
-    r = m[:, None] * h
-    np.subtract(Y, r, out=r)
+    dh = np.multiply(kap, d, out=d)
+    dh += g
+    dz, ddz, dd = np.einsum("ij,ij->i", dh, z), np.einsum("ij,ij->i", ddh, z), np.einsum("ij,ij->i", dh, dh)
     if offset:
-        nn = np.maximum(n, 1)[:, None]
-        r = np.where(W, r - r.sum(1, keepdims=True) / nn, 0.0)
-        dhc = np.where(W, dh - dh.sum(1, keepdims=True) / nn, 0.0)
-    else:
-        dhc = dh
-    phi = -2 * m * (dh * r).sum(1)
-    dphi = 2 * m * m * (dhc * dhc).sum(1) - 2 * m * (ddh * r).sum(1)
-    return phi, dphi
+        nn = np.maximum(n, 1)
+        zbar, sdh = z.sum(1) / nn, dh.sum(1)
+        dz -= zbar * sdh
+        ddz -= zbar * ddh.sum(1)
+        dd -= sdh * sdh / nn
+    return -2 * m * dz, 2 * m * m * dd - 2 * m * ddz
 
 
 def bracketed_newton(terms, x, phi, dphi, lo, hi, done, rows, steps, converged, bisect):
@@ -202,15 +204,15 @@ def fit_full_batch(model: str, U, Y, W, n, m, offset: bool, eligible, grid=None)
     x = parabolic_start(grid, i, FULL_GRID)
     ok = eligible & np.isfinite(m) & (m > 0) & np.isfinite(grid.min(axis=1))
     mm = np.where(ok, m, 1.0)
-    phi, dphi = _newton_terms(model, x, U, Y, W, n, mm, offset)
+    phi, dphi = _newton_terms(model, x, U, Y, n, mm, offset)
     lo = np.where(phi < 0, x, lo)
     hi = np.where(phi < 0, hi, x)
     done = ~ok | (phi == 0) | ((i == 0) & (phi > 0)) | ((i == last) & (phi < 0))
 
-    def terms(xk, Uk, Yk, Wk, nk, mk):
-        return _newton_terms(model, xk, Uk, Yk, Wk, nk, mk, offset)
+    def terms(xk, Uk, Yk, nk, mk):
+        return _newton_terms(model, xk, Uk, Yk, nk, mk, offset)
 
     # geometric bisection: the grid is geometric
-    x = bracketed_newton(terms, x, phi, dphi, lo, hi, done, (U, Y, W, n, mm), _NEWTON_STEPS,
+    x = bracketed_newton(terms, x, phi, dphi, lo, hi, done, (U, Y, n, mm), _NEWTON_STEPS,
                          lambda xn, xa: np.abs(xn - xa) <= STEP_TOL * xa, lambda la, ha: np.sqrt(la * ha))
     return _pack(model, np.where(ok, x, 1.0), U, Y, W, n, mm, offset, ok)
