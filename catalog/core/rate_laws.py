@@ -145,15 +145,20 @@ def curvature_basis(model: str, kappa, u, derivatives: int = 0) -> tuple:
     kappa, u = np.broadcast_arrays(np.asarray(kappa, dtype=float), np.asarray(u, dtype=float))
     if model == "second":
         g = u / (1.0 + kappa * u)
-        # only the derivatives asked for: g**3 costs more than the basis itself
-        return (g,) + ((-g * g,) if derivatives >= 1 else ()) + ((2.0 * g**3,) if derivatives >= 2 else ())
+        if derivatives == 0:
+            return (g,)
+        # products, not powers: np.power with exponent 3 costs more than the basis itself
+        gg = g * g
+        return (g, np.negative(gg)) + ((np.multiply(2.0 * g, gg),) if derivatives >= 2 else ())
     x = kappa * u
     phis = _phi(x, u, derivatives)
     phis[0] *= u
     if derivatives >= 1:
-        phis[1] *= u * u
+        uu = u * u
+        phis[1] *= uu
     if derivatives >= 2:
-        phis[2] *= u**3
+        phis[2] *= uu
+        phis[2] *= u
     return tuple(phis)
 
 
