@@ -19,8 +19,9 @@ the (alpha, rho, theta) layout of :class:`catalog.core.rate_laws.ModelFit` with
 (the offset column dropped when the offset is not fitted). The profile RSS(kappa) is scanned on
 :data:`FULL_GRID` (down to 1e-6, for blanks that convert a fraction of a per cent) and refined inside the two cells
 around the best grid point: by ``scipy.optimize.minimize_scalar`` in the reference (:func:`fit_full`, which alone
-imports scipy.optimize), by
-vectorised safeguarded Newton on dRSS/dkappa in the batch path (:func:`fit_full_batch`).
+imports scipy.optimize), by vectorised safeguarded Newton on dRSS/dkappa in the batch path (:func:`fit_full_batch`),
+started at the vertex of the grid parabola (:func:`parabolic_start`) and run by :func:`bracketed_newton`, which
+the free-plateau fits of :mod:`catalog.core.batch` share.
 """
 
 from __future__ import annotations
@@ -193,8 +194,9 @@ def fit_full_batch(model: str, U, Y, W, n, m, offset: bool, eligible, grid=None)
     """Vectorised fixed-plateau fits of padded normalised rows; ``m`` is each row's plateau in units of y.
 
     The grid point of least RSS brackets the minimum between its neighbours; safeguarded Newton on
-    phi = dRSS/dkappa (bisection whenever a step leaves the bracket or phi' <= 0) refines it. ``grid``: the
-    (rows, FULL_GRID) profile RSS of :func:`profile_rss`, when the caller has scanned it already.
+    phi = dRSS/dkappa (bisection whenever a step leaves the bracket or phi' <= 0), started at the vertex of the
+    grid parabola, refines it to a relative step of :data:`STEP_TOL`. ``grid``: the (rows, FULL_GRID) profile RSS
+    (as :func:`profile_rss` gives it), when the caller has scanned it already.
     """
     if grid is None:
         grid = np.stack([profile_rss(model, k, U, Y, W, n, m, offset) for k in FULL_GRID], 1)
