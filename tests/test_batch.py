@@ -86,6 +86,18 @@ def test_chunking_and_order_do_not_matter(campaign):
     np.testing.assert_allclose(shuffled["r0"], df["r0"], rtol=1e-9)
 
 
+def test_threads_give_the_plain_loop_bit_for_bit(campaign):
+    # an invariant of the implementation (each chunk is fitted alone), not a computed figure: no source needed
+    traces, _, _ = campaign
+    trial, t, amount, n_max = _long(traces)
+    serial = fit_traces(trial, t, amount, n_max, chunk_points=500, workers=1)
+    for workers in (2, 3):
+        pd.testing.assert_frame_equal(fit_traces(trial, t, amount, n_max, chunk_points=500, workers=workers), serial,
+                                      check_exact=True)
+    with pytest.raises(ValueError, match="workers"):
+        fit_traces(trial, t, amount, n_max, workers=0)
+
+
 def test_trials_without_points_and_empty_input():
     df = fit_traces(np.array([1, 1, 1], dtype=int), [0.0, 1.0, 2.0], [0.0, 1.0, 2.0], [np.nan, np.nan, np.nan])
     assert list(df["model"]) == ["none", "initial_slope", "none"]
