@@ -2,7 +2,8 @@ r"""Campaign-scale rate extraction: the fits of :mod:`catalog.core.kinetics`, ve
 
 Traces come long-form (one row per point, sorted by trial then time) and are padded, a chunk of trials at a time
 (:data:`CHUNK_POINTS`, sized for the cache), to 2-D arrays (trials x points) with zeros after each trial's last
-point; every basis g(u) vanishes at u = 0, so padding drops out of all sums. For each model the inner linear least
+point; every basis g(u) vanishes at u = 0, so padding drops out of all sums. The chunks are independent and are
+fitted on a few threads (:func:`fit_traces`, ``workers``), bit for bit as on one. For each model the inner linear least
 squares in (a, r0) is closed form from per-trial sums, and the one nonlinear parameter is found without a per-trial
 loop:
 
