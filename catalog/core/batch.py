@@ -115,20 +115,22 @@ def _fit_zero(U, Y, W, n, eligible, offset=True) -> dict:
     m, L = U.shape
     j = np.arange(L)[None, :]
     nn = n[:, None]
-    S1, Su, Suu = np.cumsum(W, 1, dtype=float), np.cumsum(U, 1), np.cumsum(U * U, 1)
+    UU = U * U
+    S1, Su, Suu = np.cumsum(W, 1, dtype=float), np.cumsum(U, 1), np.cumsum(UU, 1)
     Sy, Suy, Syy = np.cumsum(Y, 1), np.cumsum(U * Y, 1), np.cumsum(Y * Y, 1)
     Ty, Tyy = Sy[:, -1:], Syy[:, -1:]
+    rest_y = Ty - Sy  # sum of y after point j
     # tau on data time u_j: g = u before, u_j after
     after = nn - S1
-    sg, sgg, sgy = Su + U * after, Suu + U * U * after, Suy + U * (Ty - Sy)
+    sg, sgg, sgy = Su + U * after, Suu + UU * after, Suy + U * rest_y
     a_f, r_f, det_f = linear_fit(nn, sg, sgg, Ty, sgy, offset)
     rss_f = Tyy - a_f * Ty - r_f * sgy
     ok_f = (j >= 2) & (j <= nn - 2) & (det_f > 0)
     # tau inside (u_j, u_{j+1}): rising line on points 0..j and the plateau mean of the rest decouple
     a_r, r_r, _ = linear_fit(S1, Su, Suu, Sy, Suy, offset)
     n_p = nn - S1
-    beta = (Ty - Sy) / np.where(n_p > 0, n_p, 1.0)
-    rss_i = (Syy - a_r * Sy - r_r * Suy) + ((Tyy - Syy) - beta * (Ty - Sy))
+    beta = rest_y / np.where(n_p > 0, n_p, 1.0)
+    rss_i = (Syy - a_r * Sy - r_r * Suy) + ((Tyy - Syy) - beta * rest_y)
     tau_i = (beta - a_r) / r_r
     u_next = np.concatenate((U[:, 1:], np.full((m, 1), np.inf)), axis=1)
     ok_i = (j >= 2) & (j <= nn - 3) & (U > U[:, :1]) & (r_r != 0) & (tau_i >= U) & (tau_i <= u_next)

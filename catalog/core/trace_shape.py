@@ -51,7 +51,10 @@ def noise_sd(Y, W) -> np.ndarray:
 
 
 def _prefix(a):
-    return np.concatenate((np.zeros((a.shape[0], 1)), np.cumsum(a, axis=1)), axis=1)
+    """Row prefix sums with a leading zero column (float); cumulated straight into the result, no concatenation."""
+    out = np.zeros((a.shape[0], a.shape[1] + 1))
+    np.cumsum(a, axis=1, dtype=float, out=out[:, 1:])
+    return out
 
 
 def leak_cut(T, Y, W):
@@ -84,18 +87,20 @@ def induction(T, Y, W):
     w = np.maximum(4, n // 8)
     sd = noise_sd(Y, W)
     Tw, Yw = np.where(W, T, 0.0), np.where(W, Y, 0.0)
-    P1, Pt, Ptt, Py, Pty = (_prefix(a) for a in (W.astype(float), Tw, Tw * Tw, Yw, Tw * Yw))
+    P1, Pt, Ptt, Py, Pty = (_prefix(a) for a in (W, Tw, Tw * Tw, Yw, Tw * Yw))
     j = np.arange(L)[None, :]
-    end = np.minimum(j + w[:, None], L)
+    # flat positions of each window's end in the (m, L + 1) prefix arrays, computed once for all five
+    end = np.minimum(j + w[:, None], L) + (L + 1) * np.arange(m)[:, None]
 
     def window(P):
-        return np.take_along_axis(P, end, 1) - P[:, :L]
+        return P.take(end) - P[:, :L]
 
     s1, st, stt, sy, sty = (window(P) for P in (P1, Pt, Ptt, Py, Pty))
     det = s1 * stt - st * st
     valid = (j + w[:, None] <= n[:, None]) & (det > 0)
-    slope = np.where(valid, (s1 * sty - st * sy) / np.where(valid, det, 1.0), -np.inf)
-    se = np.where(valid, sd[:, None] * np.sqrt(s1 / np.where(valid, det, 1.0)), np.nan)
+    det = np.where(valid, det, 1.0)
+    slope = np.where(valid, (s1 * sty - st * sy) / det, -np.inf)
+    se = np.where(valid, sd[:, None] * np.sqrt(s1 / det), np.nan)
     best = np.argmax(slope, axis=1)
     rows = np.arange(m)
     enough = valid.sum(1) >= 2
