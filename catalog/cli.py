@@ -14,7 +14,7 @@ from pathlib import Path
 
 import pandas as pd
 
-from catalog import __version__, store
+from catalog import store
 from catalog.analysis import ranking, results
 from catalog.analysis.settings import Settings
 from catalog.core import hazard
@@ -283,12 +283,22 @@ def cmd_report(args: argparse.Namespace) -> int:
     return 0
 
 
+class _Version(argparse.Action):
+    """``--version``: the version is looked up only when asked for (the metadata search is start-up cost)."""
+
+    def __call__(self, parser, namespace, values, option_string=None):
+        from catalog import __version__
+
+        print(f"catalog {__version__}")
+        parser.exit()
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="catalog",
         description="Catalyst screening results database: import trials, analyse kinetics, rank candidates.",
     )
-    parser.add_argument("--version", action="version", version=f"catalog {__version__}")
+    parser.add_argument("--version", action=_Version, nargs=0, help="show program's version number and exit")
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
 
     def add(name: str, func, help_text: str) -> argparse.ArgumentParser:

@@ -23,10 +23,19 @@ ROOT = Path(__file__).resolve().parents[1]
 HEAVY = ("scipy.constants", "scipy.stats", "scipy.optimize", "altair", "openpyxl", "vl_convert", "streamlit", "pint")
 
 
-def _loaded_by(*argv: str) -> set[str]:
-    """Heavy libraries a command loads, run in a fresh interpreter exactly as ``catalog ARGV`` would run it."""
-    code = ("import json, sys\nfrom catalog.cli import main\ncode = main(sys.argv[1:])\n"
-            f"print(json.dumps([m for m in {HEAVY!r} if m in sys.modules]))\nsys.exit(code)")
+#: Stands for the package version having been looked up (``catalog.__version__`` is resolved on first use).
+VERSION = "catalog.__version__"
+#: Modules of the import and correction paths, which reading commands have no use for.
+WRITE_PATH = ("catalog.store.importer", "catalog.store.staging", "catalog.store.corrections", "catalog.ingest.tables",
+              "catalog.ingest.validate", "catalog.store.integrity")
+
+
+def _loaded_by(*argv: str, watched: tuple[str, ...] = HEAVY) -> set[str]:
+    """Which of the watched modules (the heavy libraries unless told) a command loads, run in a fresh interpreter
+    exactly as ``catalog ARGV`` would run it."""
+    code = ("import json, sys\nimport catalog\nfrom catalog.cli import main\ncode = main(sys.argv[1:])\n"
+            f"loaded = [m for m in {watched!r} if m in sys.modules or m == {VERSION!r} and '__version__' in "
+            "vars(catalog)]\nprint(json.dumps(loaded))\nsys.exit(code)")
     out = subprocess.run([sys.executable, "-c", code, *argv], capture_output=True, text=True, cwd=ROOT)
     assert out.returncode == 0, out.stderr
     return set(json.loads(out.stdout.strip().splitlines()[-1]))
@@ -64,3 +73,11 @@ def test_a_warm_rank_loads_only_the_unit_registry(sample_db):
     results.get_results(sample_db[0], Settings())  # the cold analysis, here, so the command finds it cached
     # pint converts Ea and the rates to display units; nothing fits, plots or writes a workbook.
     assert _loaded_by("rank", "--db", str(sample_db[0]), "--quiet") <= {"pint"}
+
+
+
+@pytest.mark.parametrize("command", [["trials"], ["rank", "--quiet"]])
+def test_reading_commands_load_neither_the_import_path_nor_the_version(sample_db, command):
+    # The import and correction modules load on first use of their names, the version only when shown.
+    results.get_results(sample_db[0], Settings())  # rank reads a cached run, as a warm rank does
+    assert _loaded_by(*command, "--db", str(sample_db[0]), watched=(*WRITE_PATH, VERSION)) == set()

@@ -14,7 +14,6 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from catalog import __version__
 from catalog.analysis import diagnostics, ranking
 from catalog.core.hazard import CAUTION
 from catalog.errors import CatalogError
@@ -199,6 +198,8 @@ def _write_sheet(sheet, frame: pd.DataFrame) -> None:
 
 def _settings_rows(results) -> pd.DataFrame:
     # Flags may carry hazard screening (thermal-hazard and the like), so the caution travels with the workbook.
+    from catalog import __version__  # deferred: a shortlist on screen does not show it
+
     rows = [("software version", __version__, ""), ("safety caution", CAUTION, "")]
     if results is not None:
         rows += [("data fingerprint", results.data_stamp, "data_stamp"),

@@ -9,7 +9,6 @@ from pathlib import Path
 
 import duckdb
 
-from catalog import __version__
 from catalog.errors import CatalogError, DatabaseBusyError
 from catalog.store.db import (
     RESTORING,
@@ -23,7 +22,6 @@ from catalog.store.db import (
     resolve_path,
     transaction,
 )
-from catalog.store.integrity import restored_problems
 from catalog.store.schema import MIGRATIONS
 
 BACKUP_MANIFEST = "catalog-backup.json"
@@ -66,6 +64,8 @@ def backup(db: str | os.PathLike | None, directory: str | os.PathLike) -> dict:
             con.execute(f"COPY (SELECT * FROM {name}) TO ? (FORMAT parquet)", [str(out / f"{name}.parquet")])
             counts[name] = int(con.execute(f"SELECT count(*) FROM {name}").fetchone()[0])
         migrations = [r[0] for r in con.execute("SELECT version FROM schema_migrations ORDER BY version").fetchall()]
+    from catalog import __version__  # deferred: the version lookup is start-up cost for every other command
+
     manifest = {"format": BACKUP_FORMAT, "catalog_version": __version__, "created_at": now().isoformat(),
                 "source": str(path), "migrations": migrations, "tables": counts}
     partial = out / (BACKUP_MANIFEST + ".partial")
@@ -158,6 +158,9 @@ def restore(directory: str | os.PathLike, db: str | os.PathLike | None, *, force
                 if count != manifest["tables"][name]:
                     raise CatalogError(f"{file}: {count} rows, but the manifest says {manifest['tables'][name]}; "
                                        "the backup is damaged")
+            # Deferred: the import rules it checks against are start-up cost for every command but restore.
+            from catalog.store.integrity import restored_problems
+
             problems = restored_problems(con)
             if problems:
                 raise CatalogError(f"{folder}: not restored, the backup holds data an import would refuse (altered "
