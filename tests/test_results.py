@@ -39,7 +39,8 @@ def test_cold_results_from_memory_equal_the_cached_read(fresh_db, tmp_path):
 
 
 def test_a_command_opens_the_database_once_to_read_and_once_to_store(fresh_db, tmp_path, monkeypatch):
-    """Warm: one open for the fingerprint and the cached run. Cold: that one, one per block of points, one to store."""
+    """Warm: one open for the fingerprint and the cached run. Cold: that one (which also reads the first block of
+    points), one per further block, one to store."""
     from catalog.store import db as store_db
 
     db = tmp_path / "copy.duckdb"
@@ -48,7 +49,27 @@ def test_a_command_opens_the_database_once_to_read_and_once_to_store(fresh_db, t
     real_open = store_db._open
     monkeypatch.setattr(store_db, "_open", lambda *args: opened.append(args[1]) or real_open(*args))
     results.get_results(db, Settings())
-    assert opened == [True, True, False]  # the reads, the one block of points, then the write
+    assert opened == [True, False]  # the reads with the one block of points, then the write
     opened.clear()
     results.get_results(db, Settings())
     assert opened == [True]
+
+
+def test_fitting_in_several_blocks_gives_the_figures_of_one_block(fresh_db, tmp_path, monkeypatch):
+    # Memory is bounded by cutting the traces into blocks of points; the cut must change no figure and no flag.
+    whole, cut = tmp_path / "whole.duckdb", tmp_path / "cut.duckdb"
+    shutil.copy(fresh_db, whole)
+    shutil.copy(fresh_db, cut)
+    one = results.get_results(whole, Settings())
+    from catalog.store import db as store_db
+
+    opened = []
+    real_open = store_db._open
+    monkeypatch.setattr(store_db, "_open", lambda *args: opened.append(args[1]) or real_open(*args))
+    monkeypatch.setattr(results, "FIT_BLOCK_POINTS", 2_000)
+    several = results.get_results(cut, Settings())
+    n_blocks = len(opened) - 1  # the first block is read with the records, then one open per further block
+    assert n_blocks > 2 and opened == [True] * n_blocks + [False]
+    pd.testing.assert_frame_equal(one.trials, several.trials)
+    pd.testing.assert_frame_equal(one.catalysts, several.catalysts)
+    pd.testing.assert_frame_equal(one.flags, several.flags)

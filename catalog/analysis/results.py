@@ -16,6 +16,7 @@ import json
 import os
 from collections.abc import Callable
 from dataclasses import asdict, dataclass
+from importlib import import_module
 
 import numpy as np
 import pandas as pd
@@ -72,9 +73,10 @@ def get_results(db: str | os.PathLike | None, settings: Settings,
     """Results for the campaign in ``db`` under ``settings``, from the cache when it is current.
 
     One read-only connection serves the fingerprint and the cached run, and on a cold run the records, the cached
-    fits and the plan of point blocks; it is closed before the points are read, because DuckDB keeps the memory of
-    a read until its database closes (measured at 10^4 trials: +185 MB of peak when held through the fits). A cold
-    run then opens the file once per block of points and once to store what it computed.
+    fits, the plan of point blocks and the points of the first block; it is closed before anything is fitted,
+    because DuckDB keeps the memory of a read until its database closes (measured at 10^4 trials: +185 MB of peak
+    when held through the fits). A cold run then opens the file once per further block of points and once to store
+    what it computed (each open of the file costs ~20-40 ms).
     """
     say = progress or (lambda message: None)
     with store.session(db) as con:
@@ -84,12 +86,19 @@ def get_results(db: str | os.PathLike | None, settings: Settings,
         if cached is not None:
             return _results(cached, settings, key, stamp, computed=False, stored=True)
         say("loading trials")
+        # The analysis modules (deferred, see _compute) are loaded here, so that their import shows in this step
+        # rather than in the read of the points.
+        import_module("catalog.analysis.pipeline")
         catalysts, trials = store.load_records(con)
         trials_by_id = trials.set_index("trial_id")
         fitted = store.load_fits(con, FIT_VERSION)
         todo = trials_by_id.index.difference(fitted.index)
         blocks = store.point_blocks(con, todo, FIT_BLOCK_POINTS)
-    result, flags = _compute(catalysts, trials, _fit_missing(db, trials_by_id, fitted, blocks, say), settings, say)
+        say(f"fitting {len(todo)} trace(s), reusing {len(trials_by_id) - len(todo)} cached fit(s)")
+        # A one-slot list, so that only the fitting loop holds the first block's points (and lets them go).
+        first = [_read_block(con, blocks, 0, say)]
+    result, flags = _compute(catalysts, trials, _fit_missing(db, trials_by_id, fitted, blocks, first, say), settings,
+                             say)
     trial_table = _with_codes(result.trials, flags, "trial")
     catalyst_table = _with_codes(result.catalysts, flags, "catalyst")
     fit = result.blank
@@ -133,23 +142,38 @@ def _compute(catalysts: pd.DataFrame, trials: pd.DataFrame, fits: pd.DataFrame, 
     return result, flags
 
 
+def _block_words(blocks: list[list[str]], number: int) -> str:
+    """' of trials 1-300 of 900' for block ``number`` of several, '' for a single block."""
+    if len(blocks) == 1:
+        return ""
+    done = sum(len(block) for block in blocks[:number])
+    return f" of trials {done + 1}-{done + len(blocks[number])} of {sum(len(block) for block in blocks)}"
+
+
+def _read_block(db, blocks: list[list[str]], number: int, say: Callable[[str], None]) -> store.PointArrays | None:
+    """The trace points of block ``number`` (None when there is no block to fit)."""
+    if number >= len(blocks):
+        return None
+    # Separate messages for the read and the fits: on a large campaign the user (and the benchmark) sees which.
+    say(f"  reading the trace points{_block_words(blocks, number)}")
+    return store.load_point_arrays(db, blocks[number])
+
+
 def _fit_missing(db, trials: pd.DataFrame, cached: pd.DataFrame, blocks: list[list[str]],
-                 say: Callable[[str], None]) -> pd.DataFrame:
-    """Kinetic fits for every trial: cached ones reused, the rest fitted a block of trace points at a time."""
+                 first: list[store.PointArrays | None], say: Callable[[str], None]) -> pd.DataFrame:
+    """Kinetic fits for every trial: cached ones reused, the rest fitted a block of trace points at a time.
+
+    ``first`` holds the points of the first block (read on the connection that planned the blocks), taken out here.
+    """
     from catalog.analysis.per_trial import fit_coded  # deferred with the pipeline (see _compute)
 
-    n_todo = sum(len(block) for block in blocks)
-    say(f"fitting {n_todo} trace(s), reusing {len(trials) - n_todo} cached fit(s)")
-    fresh, done = [], 0
-    for block in blocks:
-        # Separate messages for the read and the fits: on a large campaign the user (and the benchmark) sees which.
-        part = f" of trials {done + 1}-{done + len(block)} of {n_todo}" if len(blocks) > 1 else ""
-        say(f"  reading the trace points{part}")
-        points = store.load_point_arrays(db, block)
-        say(f"  fitting the rate laws{part}")
+    fresh = []
+    for number in range(len(blocks)):
+        points = first.pop() if number == 0 else _read_block(db, blocks, number, say)
+        say(f"  fitting the rate laws{_block_words(blocks, number)}")
         with np.errstate(all="ignore"):  # NaN figures for missing inputs, by design (see _compute)
             fresh.append(fit_coded(trials.loc[points.trial_ids], points.codes, points.t, points.value))
-        done += len(block)
+        points = None  # one block's points in memory at a time
     return pd.concat([cached.loc[cached.index.intersection(trials.index)], *fresh])
 
 
