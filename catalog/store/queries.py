@@ -134,13 +134,27 @@ def load_point_arrays(db: Store, trial_ids) -> PointArrays:
             con.unregister("asked")
     position = np.asarray(got["position"], dtype=np.int64)
     t, value = np.asarray(got["t"], dtype=float), np.asarray(got["value"], dtype=float)
-    step = np.diff(position)
-    if not ((step > 0) | ((step == 0) & (np.diff(t) > 0))).all():
+    if not _in_order(position, t):
         order = np.lexsort((t, position))
         position, t, value = position[order], t[order], value[order]
     counts = np.bincount(position, minlength=len(asked))
     have = counts > 0
     return PointArrays(asked["trial_id"][have].tolist(), counts[have], t, value)
+
+
+#: Points compared at a time by :func:`_in_order`: its temporaries stay in cache (campaign-sized ones cost a fresh
+#: page of memory per 4 kB; measured at 2×10^6 points: 7-14 ms at once, ~3 ms in blocks).
+_ORDER_BLOCK = 1 << 16
+
+
+def _in_order(position: np.ndarray, t: np.ndarray) -> bool:
+    """Whether the points come trial by trial (position never falling) and in rising time within each trial."""
+    for lo in range(0, len(position) - 1, _ORDER_BLOCK):
+        hi = min(lo + _ORDER_BLOCK, len(position) - 1)  # compares point i with i + 1 for lo <= i < hi
+        before, after = position[lo:hi], position[lo + 1:hi + 1]
+        if not ((after > before) | ((after == before) & (t[lo + 1:hi + 1] > t[lo:hi]))).all():
+            return False
+    return True
 
 
 def point_blocks(db: Store, trial_ids, max_points: int) -> list[list[str]]:
