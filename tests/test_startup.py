@@ -16,8 +16,10 @@ from pathlib import Path
 import pytest
 
 import catalog
+from catalog import store
 from catalog.analysis import results
 from catalog.analysis.settings import Settings
+from catalog.ingest.sources import read_source
 
 ROOT = Path(__file__).resolve().parents[1]
 HEAVY = ("scipy.constants", "scipy.stats", "scipy.optimize", "altair", "openpyxl", "vl_convert", "streamlit", "pint")
@@ -67,6 +69,14 @@ def test_import_loads_no_fitting_plotting_or_spreadsheet_library(sample_db):
 @pytest.mark.parametrize("command", [["trials"], ["imports"], ["history"]])
 def test_listing_commands_load_no_heavy_library(sample_db, command):
     assert _loaded_by(*command, "--db", str(sample_db[0])) == set()
+
+
+def test_a_cold_analysis_loads_no_optimiser_statistics_or_constants_library(tmp_path):
+    # The batch fits run on numpy alone; scipy.optimize stays with the per-trial reference fits, scipy.stats and
+    # scipy.constants are never needed by the package (quantiles come from scipy.special, constants are literals).
+    db = tmp_path / "cold.duckdb"
+    store.import_campaign(db, read_source(ROOT / "sample_campaign"))  # a store of its own: nothing cached yet
+    assert _loaded_by("analyse", "--db", str(db), "--quiet") <= {"pint"}
 
 
 def test_a_warm_rank_loads_only_the_unit_registry(sample_db):
