@@ -83,90 +83,98 @@ def _trial_flags(trials: pd.DataFrame, settings) -> list[dict]:
     """Fit quality, deactivation, blank, transport and hazard flags of single trials."""
     s = settings
     out: list[dict] = []
-    catalysed = trials["catalyst_id"].notna() if "catalyst_id" in trials.columns else pd.Series(True, trials.index)
-    model = trials["model"].astype(object) if "model" in trials.columns else pd.Series(None, trials.index, object)
-    r2 = _column(trials, "r2")
-    runs_z = _column(trials, "runs_z")
-    late_z = _column(trials, "late_residual_z")
-    plateau = _column(trials, "plateau_ratio")
-    final = _column(trials, "final_conversion")
-    ratio = _column(trials, "enhancement")
-    wp = _column(trials, "weisz_prater")
-    mears = _column(trials, "mears")
-    rise = _column(trials, "adiabatic_rise")
-    burst = _column(trials, "pressure_rise_max")
-    temperature = _column(trials, "temperature")
-    plateau_se = _column(trials, "plateau_se")
-    plateau_abs = _column(trials, "plateau")
-    fixed = trials["plateau_fixed"].fillna(False).astype(bool) if "plateau_fixed" in trials.columns else False
-    leak = _column(trials, "leak_cut")
-    induction_z = _column(trials, "induction_z")
-    max_rate = _column(trials, "max_rate")
-    r0 = _column(trials, "r0")
-    undetected = (trials["blank_undetected"].fillna(False).astype(bool) if "blank_undetected" in trials.columns
-                  else pd.Series(False, trials.index))
+    # Numbers as arrays and flagged trials by position: a pandas comparison per rule and a label look-up per flagged
+    # value cost ~40 ms at 10^4 trials with 500 flags, for the same flags.
+    ids = trials.index.to_numpy(object)
+    n = len(ids)
+    catalysed = (trials["catalyst_id"].notna().to_numpy(bool) if "catalyst_id" in trials.columns
+                 else np.ones(n, bool))
+    model = trials["model"].to_numpy(object) if "model" in trials.columns else np.full(n, None, object)
+    r2 = _column(trials, "r2").to_numpy()
+    runs_z = _column(trials, "runs_z").to_numpy()
+    late_z = _column(trials, "late_residual_z").to_numpy()
+    plateau = _column(trials, "plateau_ratio").to_numpy()
+    final = _column(trials, "final_conversion").to_numpy()
+    ratio = _column(trials, "enhancement").to_numpy()
+    wp = _column(trials, "weisz_prater").to_numpy()
+    mears = _column(trials, "mears").to_numpy()
+    rise = _column(trials, "adiabatic_rise").to_numpy()
+    burst = _column(trials, "pressure_rise_max").to_numpy()
+    temperature = _column(trials, "temperature").to_numpy()
+    plateau_se = _column(trials, "plateau_se").to_numpy()
+    plateau_abs = _column(trials, "plateau").to_numpy()
+    fixed = (trials["plateau_fixed"].fillna(False).astype(bool).to_numpy() if "plateau_fixed" in trials.columns
+             else False)
+    leak = _column(trials, "leak_cut").to_numpy()
+    induction_z = _column(trials, "induction_z").to_numpy()
+    max_rate = _column(trials, "max_rate").to_numpy()
+    r0 = _column(trials, "r0").to_numpy()
+    undetected = (trials["blank_undetected"].fillna(False).astype(bool).to_numpy() if "blank_undetected" in
+                  trials.columns else np.zeros(n, bool))
 
-    for tid in trials.index[leak > 0]:
-        out.append(_flag("trial", tid, "leak", f"The readings fall after the trace's maximum; the last "
-                         f"{leak[tid]:.0f} were left out of the fit.", leak[tid], 0.0))
-    for tid in trials.index[catalysed & (induction_z > s.induction_z_limit)]:
-        out.append(_flag("trial", tid, "induction-period",
-                         f"The local rate rises to {max_rate[tid]:.3g} mol/s, well above the rate of the first "
-                         f"readings (z = {induction_z[tid]:.1f}, limit {s.induction_z_limit:g}); the fitted initial "
-                         f"rate {r0[tid]:.3g} mol/s does not describe the working catalyst.", induction_z[tid],
+    for i in np.flatnonzero(leak > 0):
+        out.append(_flag("trial", ids[i], "leak", f"The readings fall after the trace's maximum; the last "
+                         f"{leak[i]:.0f} were left out of the fit.", leak[i], 0.0))
+    for i in np.flatnonzero(catalysed & (induction_z > s.induction_z_limit)):
+        out.append(_flag("trial", ids[i], "induction-period",
+                         f"The local rate rises to {max_rate[i]:.3g} mol/s, well above the rate of the first "
+                         f"readings (z = {induction_z[i]:.1f}, limit {s.induction_z_limit:g}); the fitted initial "
+                         f"rate {r0[i]:.3g} mol/s does not describe the working catalyst.", induction_z[i],
                          s.induction_z_limit))
-    for tid in trials.index[~catalysed & undetected]:
-        out.append(_flag("trial", tid, "blank-not-detected",
-                         f"Blank rate {r0[tid]:.3g} mol/s is within {Z95:.2f} standard errors of zero.",
-                         r0[tid], 0.0))
+    for i in np.flatnonzero(~catalysed & undetected):
+        out.append(_flag("trial", ids[i], "blank-not-detected",
+                         f"Blank rate {r0[i]:.3g} mol/s is within {Z95:.2f} standard errors of zero.",
+                         r0[i], 0.0))
 
-    for tid in trials.index[model.isin(["initial_slope", "none"])]:
-        what = "no rate could be fitted" if model[tid] == "none" else "the rate is the slope of the early points"
+    for i in np.flatnonzero((model == "initial_slope") | (model == "none")):
+        what = "no rate could be fitted" if model[i] == "none" else "the rate is the slope of the early points"
         # value/threshold: the rate laws tried vs fitted carry no number; 0 of 1 fitted keeps the columns numeric.
-        out.append(_flag("trial", tid, "fit-fallback", f"No integrated rate law fitted this trace; {what}.", 0.0, 1.0))
-    for tid in trials.index[r2 < s.min_r2]:
-        out.append(_flag("trial", tid, "poor-fit",
-                         f"R² of the rate-law fit is {r2[tid]:.4f}, below {s.min_r2:g}.", r2[tid], s.min_r2))
-    for tid in trials.index[runs_z.abs() > s.runs_z_limit]:
-        out.append(_flag("trial", tid, "residual-pattern",
-                         f"Runs test of the residual signs gives z = {runs_z[tid]:.1f}; beyond ±{s.runs_z_limit:g} "
-                         "the residuals are not random.", runs_z[tid], s.runs_z_limit))
-    for tid in trials.index[catalysed & (late_z < s.late_residual_z_limit)]:
-        out.append(_flag("trial", tid, "late-shortfall",
+        out.append(_flag("trial", ids[i], "fit-fallback", f"No integrated rate law fitted this trace; {what}.", 0.0,
+                         1.0))
+    for i in np.flatnonzero(r2 < s.min_r2):
+        out.append(_flag("trial", ids[i], "poor-fit",
+                         f"R² of the rate-law fit is {r2[i]:.4f}, below {s.min_r2:g}.", r2[i], s.min_r2))
+    for i in np.flatnonzero(np.abs(runs_z) > s.runs_z_limit):
+        out.append(_flag("trial", ids[i], "residual-pattern",
+                         f"Runs test of the residual signs gives z = {runs_z[i]:.1f}; beyond ±{s.runs_z_limit:g} "
+                         "the residuals are not random.", runs_z[i], s.runs_z_limit))
+    for i in np.flatnonzero(catalysed & (late_z < s.late_residual_z_limit)):
+        out.append(_flag("trial", ids[i], "late-shortfall",
                          f"The last third of the trace lies below the fitted curve (mean residual z = "
-                         f"{late_z[tid]:.1f}, limit {s.late_residual_z_limit:g}).", late_z[tid],
+                         f"{late_z[i]:.1f}, limit {s.late_residual_z_limit:g}).", late_z[i],
                          s.late_residual_z_limit))
     # A short plateau alone is not enough: a slow trial stopped early has an extrapolated plateau that can be anything.
     # Only when the trace has reached its own plateau (rate died) is the shortfall measured rather than guessed.
     levelled = final >= LEVELLED_FRACTION * plateau
     # A free plateau known to a few per cent is tested against n_max with its own standard error, levelled or not.
     determined = ~fixed & (plateau_se < PLATEAU_WELL_DETERMINED * plateau_abs)
-    n_max = plateau_abs / plateau
+    with np.errstate(divide="ignore", invalid="ignore"):  # NaN or inf where a plateau is 0 or missing, as in pandas
+        n_max = plateau_abs / plateau
     below = (plateau < 1 - PLATEAU_MARGIN) & (n_max - plateau_abs > 3 * plateau_se)
     short = (plateau < s.plateau_shortfall) & levelled
-    for tid in trials.index[catalysed & (plateau > 0) & (short | (determined & below))]:
-        out.append(_flag("trial", tid, "plateau-short",
-                         f"The trace levelled off at {plateau[tid]:.0%} of full conversion (reached "
-                         f"{final[tid]:.0%}), below {s.plateau_shortfall:.0%}.", plateau[tid], s.plateau_shortfall))
-    for tid in trials.index[catalysed & (ratio < s.min_enhancement)]:
-        out.append(_flag("trial", tid, "blank-dominated",
-                         f"Rate is {ratio[tid]:.2f} times the blank rate at {_kelvin_text(temperature[tid])}, below "
-                         f"{s.min_enhancement:g} times.", ratio[tid], s.min_enhancement))
-    for tid in trials.index[wp > s.weisz_prater_limit]:
-        out.append(_flag("trial", tid, "weisz-prater",
-                         f"Weisz-Prater number {wp[tid]:.3g} exceeds {s.weisz_prater_limit:g}.", wp[tid],
+    for i in np.flatnonzero(catalysed & (plateau > 0) & (short | (determined & below))):
+        out.append(_flag("trial", ids[i], "plateau-short",
+                         f"The trace levelled off at {plateau[i]:.0%} of full conversion (reached "
+                         f"{final[i]:.0%}), below {s.plateau_shortfall:.0%}.", plateau[i], s.plateau_shortfall))
+    for i in np.flatnonzero(catalysed & (ratio < s.min_enhancement)):
+        out.append(_flag("trial", ids[i], "blank-dominated",
+                         f"Rate is {ratio[i]:.2f} times the blank rate at {_kelvin_text(temperature[i])}, below "
+                         f"{s.min_enhancement:g} times.", ratio[i], s.min_enhancement))
+    for i in np.flatnonzero(wp > s.weisz_prater_limit):
+        out.append(_flag("trial", ids[i], "weisz-prater",
+                         f"Weisz-Prater number {wp[i]:.3g} exceeds {s.weisz_prater_limit:g}.", wp[i],
                          s.weisz_prater_limit))
-    for tid in trials.index[mears > s.mears_limit]:
-        out.append(_flag("trial", tid, "mears", f"Mears number {mears[tid]:.3g} exceeds {s.mears_limit:g}.",
-                         mears[tid], s.mears_limit))
+    for i in np.flatnonzero(mears > s.mears_limit):
+        out.append(_flag("trial", ids[i], "mears", f"Mears number {mears[i]:.3g} exceeds {s.mears_limit:g}.",
+                         mears[i], s.mears_limit))
     # A rise in the low band is reported in the tables but is no hazard worth a flag on every trial.
-    for tid in trials.index[rise >= hazard.LOW_RISE]:
-        out.append(_thermal_flag("trial", tid, rise[tid]))
-    for tid in trials.index[burst.notna()]:
-        out.append(_flag("trial", tid, "pressure-build-up",
+    for i in np.flatnonzero(rise >= hazard.LOW_RISE):
+        out.append(_thermal_flag("trial", ids[i], rise[i]))
+    for i in np.flatnonzero(~np.isnan(burst)):
+        out.append(_flag("trial", ids[i], "pressure-build-up",
                          f"Closed vessel: complete reaction would raise the headspace pressure by about "
-                         f"{burst[tid] / 1e3:.0f} kPa at {_kelvin_text(temperature[tid])}. {hazard.CAUTION}",
-                         burst[tid], 0.0))
+                         f"{burst[i] / 1e3:.0f} kPa at {_kelvin_text(temperature[i])}. {hazard.CAUTION}",
+                         burst[i], 0.0))
     return out
 
 
