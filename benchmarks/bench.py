@@ -97,9 +97,13 @@ def phase_import(work: Path) -> dict:
 
     target = work / "phase.duckdb"
     target.unlink(missing_ok=True)
+    marks = [(0.0, "reading the source files (and their SHA-256)")]
     start = time.perf_counter()
-    store.import_campaign(target, sources.read_source(work / CAMPAIGN))
-    return {"seconds": time.perf_counter() - start}
+    source = sources.read_source(work / CAMPAIGN)
+    store.import_campaign(target, source, progress=lambda message: marks.append((time.perf_counter() - start,
+                                                                                  message)))
+    elapsed = time.perf_counter() - start
+    return {"seconds": elapsed, "steps": _steps(marks, elapsed)}
 
 
 def phase_analysis(work: Path) -> dict:
@@ -111,9 +115,13 @@ def phase_analysis(work: Path) -> dict:
     res = results.get_results(work / "phase.duckdb", Settings(),
                               progress=lambda message: marks.append((time.perf_counter() - start, message)))
     elapsed = time.perf_counter() - start
-    steps = [(message, (marks[i + 1][0] if i + 1 < len(marks) else elapsed) - at)
-             for i, (at, message) in enumerate(marks)]
-    return {"seconds": elapsed, "computed": res.computed, "steps": steps}
+    return {"seconds": elapsed, "computed": res.computed, "steps": _steps(marks, elapsed)}
+
+
+def _steps(marks: list[tuple[float, str]], elapsed: float) -> list[tuple[str, float]]:
+    """Each progress message with the seconds until the next one (the last: until the end)."""
+    return [(message, (marks[i + 1][0] if i + 1 < len(marks) else elapsed) - at)
+            for i, (at, message) in enumerate(marks)]
 
 
 def phase_warm(work: Path) -> dict:

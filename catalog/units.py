@@ -98,9 +98,49 @@ def parse_unit(spelling: str) -> pint.Unit:
     return unit
 
 
-@lru_cache(maxsize=512)
+#: pint's answers for the spellings of the column and measurement reference units (and a time in min or h), so an
+#: import whose headers use only these never imports pint or builds its registry (0.15-0.3 s). The numbers are
+#: pint 0.25's floats to the last bit (``mL`` is 1.0000000000000002e-06 m³, not 1e-6), so a value converted here
+#: is stored exactly as pint would have converted it; tests/test_import.py checks every entry against pint.
+KNOWN_CONVERTERS: dict[tuple[str, str], tuple[float, float, str]] = {
+    ("wt%", "wt%"): (0.01, 0.0, "wt_percent"),
+    ("%", "%"): (0.01, 0.0, "percent"),
+    ("umol/g", "umol/g"): (0.001, 0.0, "micromole / gram"),
+    ("m^2/g", "m^2/g"): (1000.0, 0.0, "meter ** 2 / gram"),
+    ("dimensionless", "dimensionless"): (1.0, 0.0, "dimensionless"),
+    ("degC", "degC"): (1.0, 273.15, "degree_Celsius"),
+    ("mg", "mg"): (1e-06, 0.0, "milligram"),
+    ("mmol", "mmol"): (0.001, 0.0, "millimole"),
+    ("kPa", "kPa"): (1000.0, 0.0, "kilopascal"),
+    ("g/mol", "g/mol"): (0.001, 0.0, "gram / mole"),
+    ("mL", "mL"): (1.0000000000000002e-06, 0.0, "milliliter"),
+    ("mol/L", "mol/L"): (999.9999999999999, 0.0, "mole / liter"),
+    ("um", "um"): (1e-06, 0.0, "micrometer"),
+    ("nm", "nm"): (1e-09, 0.0, "nanometer"),
+    ("mW", "mW"): (0.001, 0.0, "milliwatt"),
+    ("m^2/s", "m^2/s"): (1.0, 0.0, "meter ** 2 / second"),
+    ("g/cm^3", "g/cm^3"): (999.9999999999999, 0.0, "gram / centimeter ** 3"),
+    ("m/s", "m/s"): (1.0, 0.0, "meter / second"),
+    ("kJ/mol", "kJ/mol"): (1000.0, 0.0, "kilojoule / mole"),
+    ("J/K", "J/K"): (1.0, 0.0, "joule / kelvin"),
+    ("s", "s"): (1.0, 0.0, "second"),
+    ("min", "s"): (60.0, 0.0, "minute"),
+    ("h", "s"): (3600.0, 0.0, "hour"),
+    ("L", "mL"): (0.0010000000000000002, 0.0, "liter"),
+    ("g", "g"): (0.001, 0.0, "gram"),
+    ("mg", "g"): (1e-06, 0.0, "milligram"),
+    ("bar", "kPa"): (100000.0, 0.0, "bar"),
+    ("Pa", "kPa"): (1.0, 0.0, "pascal"),
+    ("mmol/L", "mmol/L"): (0.9999999999999999, 0.0, "millimole / liter"),
+    ("mol/L", "mmol/L"): (999.9999999999999, 0.0, "mole / liter"),
+}
+
+
 def si_converter(spelling: str, reference: str) -> tuple[float, float, str]:
     """Return ``(scale, shift, understood)`` so that ``si = value * scale + shift``.
+
+    A pair in :data:`KNOWN_CONVERTERS` is answered from it; any other is worked out by pint
+    (:func:`pint_converter`).
 
     ``reference`` is the column's reference unit (e.g. ``"mL"`` for a volume column); the spelling must have the
     same dimension and a plausible size relative to it. ``understood`` is pint's full name of the unit, shown to
@@ -111,6 +151,14 @@ def si_converter(spelling: str, reference: str) -> tuple[float, float, str]:
     UnitProblem
         Unreadable unit, wrong dimension, or implausible size.
     """
+    known = KNOWN_CONVERTERS.get((spelling, reference))
+    return known if known is not None else pint_converter(spelling, reference)
+
+
+@lru_cache(maxsize=512)
+def pint_converter(spelling: str, reference: str) -> tuple[float, float, str]:
+    """:func:`si_converter` worked out by pint: :math:`a = u(1) - u(0)`, :math:`b = u(0)`, with :math:`u(x)` the
+    value *x* in ``spelling`` expressed in the SI unit of ``reference``."""
     unit = parse_unit(spelling)
     ref = parse_unit(reference)
     units = registry()

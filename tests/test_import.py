@@ -21,7 +21,7 @@ from catalog.cli import main
 from catalog.datasets import bulk
 from catalog.errors import DatabaseBusyError, ValidationError
 from catalog.ingest.sources import read_source
-from catalog.units import si_converter
+from catalog.units import KNOWN_CONVERTERS, pint_converter, si_converter
 
 
 @pytest.fixture
@@ -298,6 +298,15 @@ def test_volume_units_against_codata_molar_volume():
 def test_header_units_convert_to_si(spelling, reference, si_of_one):
     scale, shift, _ = si_converter(spelling, reference)
     assert scale + shift == pytest.approx(si_of_one, rel=1e-12)
+
+
+@pytest.mark.parametrize("pair", sorted(KNOWN_CONVERTERS))
+def test_known_converters_are_pints_own_answers_to_the_last_bit(pair):
+    # pint (the reference library for unit spellings) works each pair out afresh: the table must hold its floats
+    # bit for bit and its unit name, so a stored value never depends on which of the two converted it.
+    scale, shift, understood = KNOWN_CONVERTERS[pair]
+    pint_scale, pint_shift, pint_understood = pint_converter(*pair)
+    assert (scale.hex(), shift.hex(), understood) == (pint_scale.hex(), pint_shift.hex(), pint_understood)
 
 
 @pytest.mark.parametrize("spelling,reference", [("C", "degC"), ("Ml", "mL"), ("bar(g)", "kPa")])

@@ -109,21 +109,56 @@ def connect(db: str | os.PathLike | None = None, *, read_only: bool = False, wai
     remove_stale_restores(path)
     con = _open(path, read_only, wait)
     try:
-        if read_only and _schema_version(con, path) != MIGRATIONS[-1][0]:
-            # A file from an older version: bring its schema up to date once, then read as asked.
-            con.close()
+        with _store_errors(path):
+            if read_only and _schema_version(con, path) != MIGRATIONS[-1][0]:
+                # A file from an older version: bring its schema up to date once, then read as asked.
+                con.close()
+                try:
+                    with connect(path, wait=wait):
+                        pass
+                except ReadOnlyDatabase:
+                    raise ReadOnlyDatabase(f"{path} was made by an older version and is read-only, so its schema "
+                                           "cannot be brought up to date; copy it to a folder you can write and use "
+                                           "the copy") from None
+                con = _open(path, read_only, wait)
+            elif not read_only:
+                _schema_version(con, path)
+                migrate(con)
+            yield con
+    finally:
+        con.close()
+
+
+@contextlib.contextmanager
+def attached(con: duckdb.DuckDBPyConnection, db: str | os.PathLike, *, wait: float = LOCK_WAIT_S) -> Iterator[None]:
+    """The store at ``db`` attached to ``con`` (an in-memory database, e.g. :func:`scratch_database`) as ``store``
+    for a write, its schema up to date; detached after.
+
+    What ``connect(db, create=True)`` does (the file made on a first import, a lock waited for, newer and foreign
+    files refused, pending migrations applied), through the caller's connection: a scratch database that writes
+    into the store this way opens no second DuckDB instance (~30 ms with its close).
+    """
+    path = resolve_path(db)
+    remove_stale_restores(path)
+    _retried(path, False, wait, lambda: con.execute("ATTACH ? AS store", [str(path)]))
+    try:
+        with _store_errors(path):
+            con.execute("USE store")  # the migrations name their tables unqualified
             try:
-                with connect(path, wait=wait):
-                    pass
-            except ReadOnlyDatabase:
-                raise ReadOnlyDatabase(f"{path} was made by an older version and is read-only, so its schema cannot "
-                                       "be brought up to date; copy it to a folder you can write and use the copy"
-                                       ) from None
-            con = _open(path, read_only, wait)
-        elif not read_only:
-            _schema_version(con, path)
-            migrate(con)
-        yield con
+                _schema_version(con, path)
+                migrate(con)
+            finally:
+                con.execute("USE memory")
+            yield
+    finally:
+        con.execute("DETACH store")
+
+
+@contextlib.contextmanager
+def _store_errors(path: Path) -> Iterator[None]:
+    """DuckDB's refusals while working on the store at ``path``, as messages a user can act on."""
+    try:
+        yield
     except duckdb.Error as exc:
         if is_read_only_error(exc):
             raise ReadOnlyDatabase(f"{path} cannot be written ({first_line(exc)}); nothing was changed") from exc
@@ -131,8 +166,6 @@ def connect(db: str | os.PathLike | None = None, *, read_only: bool = False, wai
             raise CatalogError(f"{path}: cannot be read or written ({first_line(exc)}); if the file is damaged, "
                                "restore it from a backup (catalog restore)") from exc
         raise
-    finally:
-        con.close()
 
 
 @contextlib.contextmanager
@@ -186,11 +219,16 @@ def _remove_stale_scratch() -> None:
 
 
 def _open(path: Path, read_only: bool, wait: float) -> duckdb.DuckDBPyConnection:
+    return _retried(path, read_only, wait, lambda: open_duckdb(str(path), read_only))
+
+
+def _retried(path: Path, read_only: bool, wait: float, how):
+    """``how()`` (an open or an attach of ``path``), retried while another process holds the file, for ``wait`` s."""
     deadline = time.monotonic() + wait
     delay = 0.05
     while True:
         try:
-            return open_duckdb(str(path), read_only)
+            return how()
         except duckdb.IOException as exc:
             if not read_only and is_read_only_error(exc):
                 raise ReadOnlyDatabase(f"{path} is read-only here ({first_line(exc)}); it can be ranked and "
@@ -211,7 +249,8 @@ def _schema_version(con: duckdb.DuckDBPyConnection, path: Path) -> int | None:
     """The file's schema version (None for a new, empty file); refuses newer versions and foreign DuckDB files."""
     # fetchall, not fetchone: DuckDB 2.0 keeps a half-read result open and refuses the caller's next statement.
     tables = {r[0] for r in con.execute(
-        "SELECT table_name FROM information_schema.tables WHERE table_schema = 'main'").fetchall()}
+        "SELECT table_name FROM information_schema.tables WHERE table_catalog = current_database() "
+        "AND table_schema = 'main'").fetchall()}
     if "schema_migrations" not in tables:
         if tables:
             raise CatalogError(f"{path}: a DuckDB file, but not a catalog database (it has no schema_migrations "
@@ -251,20 +290,22 @@ def _alive(pid: int) -> bool:
 
 
 def migrate(con: duckdb.DuckDBPyConnection, upto: int | None = None) -> list[int]:
-    """Apply every migration not yet recorded (up to version ``upto``, if given); return the versions applied now."""
+    """Apply every migration not yet recorded (up to version ``upto``, if given); return the versions applied now.
+
+    The pending migrations go in one transaction: a file is never left between two versions, and a new file's
+    schema costs one commit instead of one per migration (~15 ms less on a first import).
+    """
     con.execute(
         "CREATE TABLE IF NOT EXISTS schema_migrations (version INTEGER PRIMARY KEY, name VARCHAR, applied_at TIMESTAMP)"
     )
     done = {row[0] for row in con.execute("SELECT version FROM schema_migrations").fetchall()}
-    applied = []
-    for version, name, sql in MIGRATIONS:
-        if version in done or (upto is not None and version > upto):
-            continue
+    pending = [m for m in MIGRATIONS if m[0] not in done and (upto is None or m[0] <= upto)]
+    if pending:
         with transaction(con):
-            con.execute(sql)
-            con.execute("INSERT INTO schema_migrations VALUES (?, ?, ?)", [version, name, now()])
-        applied.append(version)
-    return applied
+            for version, name, sql in pending:
+                con.execute(sql)
+                con.execute("INSERT INTO schema_migrations VALUES (?, ?, ?)", [version, name, now()])
+    return [version for version, _, _ in pending]
 
 
 @contextlib.contextmanager

@@ -7,28 +7,16 @@ by :mod:`catalog.store.staging`; the store file is locked only for the final wri
 from __future__ import annotations
 
 import os
-import time
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import duckdb
 import pandas as pd
 
-from catalog.errors import CatalogError, DatabaseBusyError, Problem, ValidationError
+from catalog.errors import CatalogError, Problem, ValidationError
 from catalog.ingest.sources import CampaignSource
 from catalog.ingest.validate import check_catalysts, check_trials
-from catalog.store.db import (
-    LOCK_WAIT_S,
-    connect,
-    first_line,
-    holder,
-    is_lock_error,
-    now,
-    resolve_path,
-    scratch_database,
-    transaction,
-    user,
-)
+from catalog.store.db import attached, connect, first_line, now, resolve_path, scratch_database, transaction, user
 from catalog.store.schema import CATALYST_FIELDS, TRIAL_FIELDS
 from catalog.store.staging import Staged, count_points, same_traces, stage_traces, write_points
 from catalog.store.values import same_value
@@ -165,48 +153,33 @@ def _split_known(
 def _write(stage, path: Path, source: CampaignSource, staged: Staged, catalysts: pd.DataFrame, trials: pd.DataFrame,
            n_points: int, n_skipped: int, demo: bool, who: str, notes: list[str]) -> int:
     """Write one import atomically into the store, attached to the staging connection."""
-    with connect(path, create=True):
-        pass  # creates the file on a first import and brings its schema up to date before the attach
-    deadline = time.monotonic() + LOCK_WAIT_S
-    while True:
+    with attached(stage, path):
         try:
-            stage.execute("ATTACH ? AS store", [str(path)])
-            break
-        except duckdb.IOException as exc:
-            if not is_lock_error(exc):
-                raise CatalogError(f"{path}: cannot be written ({first_line(exc)}); nothing was written") from exc
-            if time.monotonic() >= deadline:
-                raise DatabaseBusyError(
-                    f"{path} is in use by another program{holder(exc)}; nothing was written") from exc
-            time.sleep(0.2)
-    try:
-        stage.register("new_catalysts", catalysts[CATALYST_FIELDS].reset_index(drop=True))
-        stage.register("new_trial_rows", trials[TRIAL_FIELDS].reset_index(drop=True))
-        with transaction(stage):
-            import_id = stage.execute("SELECT coalesce(max(import_id), 0) + 1 FROM store.imports").fetchone()[0]
-            stage.execute(
-                "INSERT INTO store.imports VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
-                [import_id, source.source, ", ".join(source.files), source.content_hash, now(), who,
-                 len(catalysts), len(trials), n_points, n_skipped, demo, "\n".join(notes)],
-            )
-            stage.execute(
-                f"INSERT INTO store.catalysts ({', '.join(CATALYST_FIELDS)}, import_id, excluded) "
-                f"SELECT {', '.join(CATALYST_FIELDS)}, ?, false FROM new_catalysts",
-                [import_id],
-            )
-            stage.execute(
-                f"INSERT INTO store.trials ({', '.join(TRIAL_FIELDS)}, import_id, excluded) "
-                f"SELECT {', '.join(TRIAL_FIELDS)}, ?, false FROM new_trial_rows",
-                [import_id],
-            )
-            write_points(stage, staged)
-    except duckdb.ConstraintException as exc:
-        raise CatalogError(f"{path}: another import wrote some of these ids meanwhile; nothing was written "
-                           f"({first_line(exc)})") from exc
-    except (duckdb.IOException, duckdb.TransactionException, duckdb.OutOfMemoryException) as exc:
-        # A full disk (the store's or the staging spill folder's), a folder that turned read-only: rolled back.
-        raise CatalogError(f"{path}: cannot be written ({first_line(exc)}); nothing was written") from exc
-    finally:
-        stage.execute("DETACH store")
+            stage.register("new_catalysts", catalysts[CATALYST_FIELDS].reset_index(drop=True))
+            stage.register("new_trial_rows", trials[TRIAL_FIELDS].reset_index(drop=True))
+            with transaction(stage):
+                import_id = stage.execute("SELECT coalesce(max(import_id), 0) + 1 FROM store.imports").fetchone()[0]
+                stage.execute(
+                    "INSERT INTO store.imports VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                    [import_id, source.source, ", ".join(source.files), source.content_hash, now(), who,
+                     len(catalysts), len(trials), n_points, n_skipped, demo, "\n".join(notes)],
+                )
+                stage.execute(
+                    f"INSERT INTO store.catalysts ({', '.join(CATALYST_FIELDS)}, import_id, excluded) "
+                    f"SELECT {', '.join(CATALYST_FIELDS)}, ?, false FROM new_catalysts",
+                    [import_id],
+                )
+                stage.execute(
+                    f"INSERT INTO store.trials ({', '.join(TRIAL_FIELDS)}, import_id, excluded) "
+                    f"SELECT {', '.join(TRIAL_FIELDS)}, ?, false FROM new_trial_rows",
+                    [import_id],
+                )
+                write_points(stage, staged)
+        except duckdb.ConstraintException as exc:
+            raise CatalogError(f"{path}: another import wrote some of these ids meanwhile; nothing was written "
+                               f"({first_line(exc)})") from exc
+        except (duckdb.IOException, duckdb.TransactionException, duckdb.OutOfMemoryException) as exc:
+            # A full disk (the store's or the staging spill folder's), a folder that turned read-only: rolled back.
+            raise CatalogError(f"{path}: cannot be written ({first_line(exc)}); nothing was written") from exc
     return int(import_id)
 

@@ -193,22 +193,27 @@ def _stage_typed(stage: duckdb.DuckDBPyConnection, source: CampaignSource, names
         "CREATE VIEW typed AS SELECT rowid + 2 AS line, trial_id::VARCHAR AS trial_id, enum_code(trial_id) AS code, "
         "time AS time_num, value AS value_num FROM raw"
     )
-    cells = " OR ".join(f"({c})" for c, _, _ in _TRACE_FAULTS[:5])
     # One streaming scan marks the rows that matter: where a trial's run of rows starts, where the file order
     # breaks, where a cell is bad or a time does not increase. Lag over the rows as they come is far cheaper than a
-    # window per trial, and exact when they came in file order (checked: consecutive lines) and each trial's rows
+    # window per trial, and exact when they came in file order (checked: consecutive row ids) and each trial's rows
     # are contiguous (runs = trials); otherwise the window per trial decides. The marks are few on a clean file (one
-    # per trial), so the counts and the id match below read them, not the points again.
+    # per trial), so the counts and the id match below read them, not the points again. The scan reads the typed
+    # columns as stored (the id's ENUM code, not its text) with the range limits bound once: half the time of the
+    # same checks over the ``typed`` view (_TRACE_FAULTS[:5]; an ENUM id is never '', the members are ids).
+    time_limit, value_limit = stage.execute("SELECT min(time_limit), min(value_limit) FROM factors").fetchall()[0]
+    cells = ("trial_id IS NULL OR time IS NULL OR NOT isfinite(time) OR value IS NULL OR NOT isfinite(value) "
+             "OR abs(time) > $time_limit OR abs(value) > $value_limit")
     stage.execute(
         f"""
         CREATE TEMP TABLE marks AS
-        SELECT trial_id, line <> previous_line + 1 AS shuffled, trial_id IS DISTINCT FROM previous_trial AS starts,
-               ({cells}) OR (trial_id = previous_trial AND time_num <= previous_time) AS faulty
-        FROM (SELECT *, lag(line) OVER () AS previous_line, lag(trial_id) OVER () AS previous_trial,
-                     lag(time_num) OVER () AS previous_time FROM typed)
-        WHERE line <> previous_line + 1 OR trial_id IS DISTINCT FROM previous_trial
-              OR ({cells}) OR (trial_id = previous_trial AND time_num <= previous_time)
-        """
+        SELECT trial_id, rowid <> previous_row + 1 AS shuffled, trial_id IS DISTINCT FROM previous_trial AS starts,
+               ({cells}) OR (trial_id = previous_trial AND time <= previous_time) AS faulty
+        FROM (SELECT rowid, trial_id, time, value, lag(rowid) OVER () AS previous_row,
+                     lag(trial_id) OVER () AS previous_trial, lag(time) OVER () AS previous_time FROM raw)
+        WHERE rowid <> previous_row + 1 OR trial_id IS DISTINCT FROM previous_trial
+              OR ({cells}) OR (trial_id = previous_trial AND time <= previous_time)
+        """,
+        {"time_limit": time_limit, "value_limit": value_limit},
     )
     # Every trial id in the file starts a run at its first row, so the distinct ids of the run starts are all of them.
     shuffled, runs, n_trials, faults = stage.execute(
