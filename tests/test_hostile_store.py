@@ -278,13 +278,24 @@ def test_fit_blocks_are_bounded_by_points_not_trials(tmp_path):
     store.import_campaign(db, read_source(folder))
     order = list(lengths)
     blocks = store.point_blocks(db, order, 1000)
-    assert [t for block in blocks for t in block] == order
-    sizes = [sum(lengths[t] for t in block) for block in blocks]
-    assert sizes == [800, 800, 800, 800, 1000]
-    # A trial longer than the bound is a block of its own; unknown ids cost nothing.
-    assert store.point_blocks(db, ["L0", "S0", "nope", "L1"], 100) == [["L0"], ["S0", "nope"], ["L1"]]
+    assert [t for block in blocks for t in block.trial_ids] == order  # storage order, here the file's
+    sizes = [sum(lengths[t] for t in block.trial_ids) for block in blocks]
+    assert sizes == [800, 800, 800, 800, 1000] and [block.points for block in blocks] == sizes
+    # Each block knows the span of storage rows holding its points: the file's rows, 0-based, here.
+    assert [block.rows for block in blocks] == [(0, 799), (800, 1599), (1600, 2399), (2400, 3199), (3200, 4199)]
+    # A trial longer than the bound is a block of its own, in storage order; unknown ids come last, cost nothing.
+    assert [block.trial_ids for block in store.point_blocks(db, ["L0", "S0", "nope", "L1"], 100)] == [
+        ["L0"], ["L1"], ["S0", "nope"]]
     # When every stored point fits in one block, the trials asked for are one block, as the count would give.
-    assert store.point_blocks(db, order, 4200) == [order] and store.point_blocks(db, [], 4200) == []
+    assert store.point_blocks(db, order, 4200) == [store.PointBlock(order)] and store.point_blocks(db, [], 4200) == []
+    # A block read scans its span only, and gives what the whole-table read gives.
+    for block in blocks:
+        narrow, whole = store.load_block(db, block), store.load_point_arrays(db, block.trial_ids)
+        assert narrow.trial_ids == whole.trial_ids and np.array_equal(narrow.t, whole.t)
+        assert np.array_equal(narrow.value, whole.value) and np.array_equal(narrow.counts, whole.counts)
+    # A plan whose rows no longer match (a rewritten table) falls back to the whole-table read.
+    stale = store.PointBlock(blocks[0].trial_ids, blocks[0].points, (3200, 4199))
+    assert store.load_block(db, stale).counts.sum() == blocks[0].points
     # A block is read as arrays in the order asked, each trial's points in time order; unknown ids are left out.
     block = store.load_point_arrays(db, ["S3", "nope", "L1", "S0"])
     assert block.trial_ids == ["S3", "L1", "S0"]

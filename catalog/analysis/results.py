@@ -142,24 +142,26 @@ def _compute(catalysts: pd.DataFrame, trials: pd.DataFrame, fits: pd.DataFrame, 
     return result, flags
 
 
-def _block_words(blocks: list[list[str]], number: int) -> str:
+def _block_words(blocks: list[store.PointBlock], number: int) -> str:
     """' of trials 1-300 of 900' for block ``number`` of several, '' for a single block."""
     if len(blocks) == 1:
         return ""
-    done = sum(len(block) for block in blocks[:number])
-    return f" of trials {done + 1}-{done + len(blocks[number])} of {sum(len(block) for block in blocks)}"
+    sizes = [len(block.trial_ids) for block in blocks]
+    done = sum(sizes[:number])
+    return f" of trials {done + 1}-{done + sizes[number]} of {sum(sizes)}"
 
 
-def _read_block(db, blocks: list[list[str]], number: int, say: Callable[[str], None]) -> store.PointArrays | None:
+def _read_block(db, blocks: list[store.PointBlock], number: int,
+                say: Callable[[str], None]) -> store.PointArrays | None:
     """The trace points of block ``number`` (None when there is no block to fit)."""
     if number >= len(blocks):
         return None
     # Separate messages for the read and the fits: on a large campaign the user (and the benchmark) sees which.
     say(f"  reading the trace points{_block_words(blocks, number)}")
-    return store.load_point_arrays(db, blocks[number])
+    return store.load_block(db, blocks[number])
 
 
-def _fit_missing(db, trials: pd.DataFrame, cached: pd.DataFrame, blocks: list[list[str]],
+def _fit_missing(db, trials: pd.DataFrame, cached: pd.DataFrame, blocks: list[store.PointBlock],
                  first: list[store.PointArrays | None], say: Callable[[str], None]) -> pd.DataFrame:
     """Kinetic fits for every trial: cached ones reused, the rest fitted a block of trace points at a time.
 

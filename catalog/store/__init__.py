@@ -19,10 +19,12 @@ from catalog.store.cache import load_fits, load_run, run_frames, save_run
 from catalog.store.db import DEFAULT_DB, ENV_DB, connect, resolve_path, session
 from catalog.store.queries import (
     PointArrays,
+    PointBlock,
     data_stamp,
     list_catalysts,
     list_imports,
     list_trials,
+    load_block,
     load_campaign,
     load_point_arrays,
     load_points,
@@ -33,11 +35,11 @@ from catalog.store.queries import (
 )
 
 __all__ = [
-    "BACKUP_MANIFEST", "DEFAULT_DB", "ENV_DB", "PURGED", "Change", "ImportReport", "PointArrays", "backup", "connect",
-    "correct", "data_stamp", "exclude", "history", "import_campaign", "include", "list_catalysts", "list_imports",
-    "list_trials", "load_campaign", "load_fits", "load_point_arrays", "load_points", "load_records", "load_run",
-    "load_trace", "point_blocks", "purge", "purge_import", "resolve_path", "restore", "run_frames", "save_run",
-    "session", "table_counts",
+    "BACKUP_MANIFEST", "DEFAULT_DB", "ENV_DB", "PURGED", "Change", "ImportReport", "PointArrays", "PointBlock",
+    "backup", "connect", "correct", "data_stamp", "exclude", "history", "import_campaign", "include",
+    "list_catalysts", "list_imports", "list_trials", "load_block", "load_campaign", "load_fits", "load_point_arrays",
+    "load_points", "load_records", "load_run", "load_trace", "point_blocks", "purge", "purge_import", "resolve_path",
+    "restore", "run_frames", "save_run", "session", "table_counts",
 ]
 
 #: Names loaded on first use, by module: the import and correction paths bring the campaign rules (~35 ms of
