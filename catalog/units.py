@@ -133,6 +133,11 @@ KNOWN_CONVERTERS: dict[tuple[str, str], tuple[float, float, str]] = {
     ("Pa", "kPa"): (1.0, 0.0, "pascal"),
     ("mmol/L", "mmol/L"): (0.9999999999999999, 0.0, "millimole / liter"),
     ("mol/L", "mmol/L"): (999.9999999999999, 0.0, "mole / liter"),
+    # display units of the rank table and its exports (per-mass and per-area rates, activation entropy), so that
+    # a warm `catalog rank` does not load pint either
+    ("mmol/(g*h)", "mmol/(g*h)"): (0.0002777777777777778, 0.0, "millimole / gram / hour"),
+    ("mmol/(m^2*h)", "mmol/(m^2*h)"): (2.7777777777777776e-07, 0.0, "millimole / hour / meter ** 2"),
+    ("J/(mol*K)", "J/(mol*K)"): (1.0, 0.0, "joule / kelvin / mole"),
 }
 
 
