@@ -177,6 +177,17 @@ def test_deactivation_rollup_rule():
     assert two_of_three.loc[two_of_three["code"] == "deactivation", "value"].iloc[0] == pytest.approx(2 / 3)
 
 
+@pytest.mark.parametrize("code, bad", [("deactivation", {"late_residual_z": -5.0}),
+                                       ("trial-fit-quality", {"runs_z": -4.5})])
+def test_rollup_among_many_trials_needs_a_share_not_just_two(code, bad):
+    # Every per-trial check has a false-alarm rate, so two flagged trials among hundreds are chance (a clean invented
+    # campaign of 10^4 trials gave 2 of ~480 per catalyst); up to 20 trials two still make a pattern
+    # (ROLLUP_MIN_FRACTION = 0.10, common practice, no source).
+    assert code in _codes(diagnostics.evaluate(_result([bad] * 2 + [{}] * 18), Settings()), "catalyst")
+    assert code not in _codes(diagnostics.evaluate(_result([bad] * 2 + [{}] * 98), Settings()), "catalyst")
+    assert code in _codes(diagnostics.evaluate(_result([bad] * 10 + [{}] * 90), Settings()), "catalyst")
+
+
 def test_registry_covers_every_code_with_severity_and_cautions():
     assert set(diagnostics.FLAG_CODES) == set(diagnostics.FLAG_SEVERITY)
     assert set(diagnostics.FLAG_SEVERITY.values()) <= {"warning", "caution", "note"}

@@ -20,7 +20,7 @@ SET_POINT_TOLERANCE = 0.5
 #: Version of the per-trial kinetic fit (models, selection, signal conversion).
 FIT_SCHEMA = 2
 #: Version of everything derived from the fits (trial and catalyst figures, diagnostics, stored run layout).
-ANALYSIS_SCHEMA = 2
+ANALYSIS_SCHEMA = 3
 FIT_VERSION = f"fit-{FIT_SCHEMA}"
 
 #: The per-trial fit columns, in the order the store declares them (the one declaration: catalog.store.schema).
