@@ -66,7 +66,9 @@ def write_bulk_campaign(directory, n_trials: int, n_points: int = 200, seed: int
     catalysts = catalyst_frame(
         {"catalyst_id": ids[i], "metal": metals[i], "metal_loading [wt%]": loading[i],
          "dispersion [%]": dispersion[i], "surface_area [m^2/g]": 150.0, "support": "Al2O3",
-         "description": "bulk benchmark catalyst", "batch": "BULK", "price_per_gram": 10.0}
+         # one preparation each: their TOFs are drawn independently, so a shared description would declare
+         # loading series that the data (rightly) fail
+         "description": f"bulk benchmark catalyst {ids[i]}", "batch": "BULK", "price_per_gram": 10.0}
         for i in range(n_cat)
     )
     tof_ref = np.exp(rng.uniform(np.log(0.3), np.log(5.0), n_cat))
