@@ -70,7 +70,10 @@ def test_curve_values_match_reference_curves(campaign):
     trial, t, _, _ = _long(traces)
     fitted = curve_values(df, trial, t)
     for i, ((ti, _, _), ref) in enumerate(zip(traces, refs, strict=False)):
-        np.testing.assert_allclose(fitted[trial == i], model_curve(ref, ti), rtol=1e-7, atol=1e-12)
+        # Two fits (batch and scipy) of one trace agree to ~1e-7 in their parameters (r0 to 1e-6 above), so their
+        # curves agree to that relative to the curve's size, not to 1e-12 absolute where a curve crosses zero.
+        want = model_curve(ref, ti)
+        np.testing.assert_allclose(fitted[trial == i], want, rtol=1e-6, atol=1e-9 * np.abs(want).max())
 
 
 def test_chunking_and_order_do_not_matter(campaign):

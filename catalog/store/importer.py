@@ -7,6 +7,8 @@ by :mod:`catalog.store.staging`; the store file is locked only for the final wri
 from __future__ import annotations
 
 import os
+from collections.abc import Iterator
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -18,7 +20,7 @@ from catalog.ingest.sources import CampaignSource
 from catalog.ingest.validate import check_catalysts, check_trials
 from catalog.store.db import attached, connect, first_line, now, resolve_path, scratch_database, transaction, user
 from catalog.store.schema import CATALYST_FIELDS, TRIAL_FIELDS
-from catalog.store.staging import Staged, count_points, same_traces, stage_traces, write_points
+from catalog.store.staging import Staged, UncleanTraces, locate_trace_faults, plan_traces, write_points
 from catalog.store.values import same_value
 
 
@@ -80,36 +82,20 @@ def import_campaign(
     overlap = [t for t in trials.frame["trial_id"].dropna() if t in stored_ids]
 
     with scratch_database() as stage:
-        say("reading trace points")
-        trace_problems, trace_notes, staged = stage_traces(stage, source, trials.frame, set(overlap))
+        trace_problems, trace_notes, staged = plan_traces(stage, source, trials.frame)
         problems += trace_problems
         notes += trace_notes
-        skipped_trials: list[str] = []
-        # Without clean points there is no staged trace to compare with the stored one (and nothing will be written).
-        if overlap and not trace_problems:
-            with connect(path, read_only=True) as con:
-                stored_trials = con.execute(
-                    f"SELECT {', '.join(TRIAL_FIELDS)} FROM trials WHERE trial_id IN (SELECT * FROM unnest(?))",
-                    [overlap],
-                ).df()
-                same_trace = same_traces(con, stage, staged, overlap)
-            new_trial_frame, skipped_trials, conflict = _split_known(
-                trials.frame[TRIAL_FIELDS + ["signal_scale", "signal_shift"]], stored_trials, "trial_id",
-                source.trials.label, same_trace,
-            )
-            problems += conflict
-        else:
-            new_trial_frame = trials.frame
         if problems:
+            # Nothing will be written: list every fault of the trace table too, and the trials that differ from
+            # the stored ones in their fields (their points are compared only on a write).
+            if staged is not None:
+                problems += locate_trace_faults(stage, source, trials.frame, staged)
+            if overlap:
+                problems += _split_known(trials.frame[TRIAL_FIELDS], _stored_trials(path, overlap), "trial_id",
+                                         source.trials.label)[2]
             raise ValidationError(problems)
-
-        new_trial_frame = new_trial_frame.reset_index(drop=True)
-        n_points = count_points(stage, staged)
-        say(f"writing {len(new_catalysts)} catalysts, {len(new_trial_frame)} trials, {n_points} points")
-        import_id = _write(stage, path, source, staged, new_catalysts, new_trial_frame, n_points,
-                           len(skipped_catalysts) + len(skipped_trials), demo, who or user(), notes)
-    return ImportReport(import_id, len(new_catalysts), len(new_trial_frame), int(n_points),
-                        skipped_catalysts, skipped_trials, notes)
+        return _write(stage, path, _Batch(source, staged, new_catalysts, skipped_catalysts, trials.frame, overlap, demo,
+                                          who or user(), notes), say)
 
 
 def _stored_state(path: Path, content_hash: str) -> tuple[tuple | None, pd.DataFrame, set[str]]:
@@ -122,6 +108,13 @@ def _stored_state(path: Path, content_hash: str) -> tuple[tuple | None, pd.DataF
         catalysts = con.execute(f"SELECT {', '.join(CATALYST_FIELDS)} FROM catalysts").df()
         trial_ids = set(con.execute("SELECT trial_id FROM trials").df()["trial_id"])
     return earlier, catalysts, trial_ids
+
+
+def _stored_trials(path: Path, ids: list[str]) -> pd.DataFrame:
+    """The stored trial records of ``ids``."""
+    with connect(path, read_only=True) as con:
+        return con.execute(f"SELECT {', '.join(TRIAL_FIELDS)} FROM trials WHERE trial_id IN (SELECT * FROM unnest(?))",
+                           [ids]).df()
 
 
 def _split_known(
@@ -150,36 +143,101 @@ def _split_known(
     return incoming.loc[sorted(keep)], skipped, problems
 
 
-def _write(stage, path: Path, source: CampaignSource, staged: Staged, catalysts: pd.DataFrame, trials: pd.DataFrame,
-           n_points: int, n_skipped: int, demo: bool, who: str, notes: list[str]) -> int:
-    """Write one import atomically into the store, attached to the staging connection."""
-    with attached(stage, path):
-        try:
-            stage.register("new_catalysts", catalysts[CATALYST_FIELDS].reset_index(drop=True))
-            stage.register("new_trial_rows", trials[TRIAL_FIELDS].reset_index(drop=True))
-            with transaction(stage):
-                import_id = stage.execute("SELECT coalesce(max(import_id), 0) + 1 FROM store.imports").fetchone()[0]
-                stage.execute(
-                    "INSERT INTO store.imports VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
-                    [import_id, source.source, ", ".join(source.files), source.content_hash, now(), who,
-                     len(catalysts), len(trials), n_points, n_skipped, demo, "\n".join(notes)],
-                )
-                stage.execute(
-                    f"INSERT INTO store.catalysts ({', '.join(CATALYST_FIELDS)}, import_id, excluded) "
-                    f"SELECT {', '.join(CATALYST_FIELDS)}, ?, false FROM new_catalysts",
-                    [import_id],
-                )
-                stage.execute(
-                    f"INSERT INTO store.trials ({', '.join(TRIAL_FIELDS)}, import_id, excluded) "
-                    f"SELECT {', '.join(TRIAL_FIELDS)}, ?, false FROM new_trial_rows",
-                    [import_id],
-                )
-                write_points(stage, staged)
-        except duckdb.ConstraintException as exc:
-            raise CatalogError(f"{path}: another import wrote some of these ids meanwhile; nothing was written "
-                               f"({first_line(exc)})") from exc
-        except (duckdb.IOException, duckdb.TransactionException, duckdb.OutOfMemoryException) as exc:
-            # A full disk (the store's or the staging spill folder's), a folder that turned read-only: rolled back.
-            raise CatalogError(f"{path}: cannot be written ({first_line(exc)}); nothing was written") from exc
-    return int(import_id)
+@dataclass(frozen=True)
+class _Batch:
+    """What one import writes: the checked records (catalysts and trials not yet stored, trials that may be) and
+    its provenance."""
 
+    source: CampaignSource
+    staged: Staged
+    catalysts: pd.DataFrame
+    skipped_catalysts: list[str]
+    trials: pd.DataFrame
+    overlap: list[str]  # ids of the trials already stored
+    demo: bool
+    who: str
+    notes: list[str]
+
+
+def _write(stage, path: Path, batch: _Batch, say) -> ImportReport:
+    """Write one import atomically into the store, attached to the staging connection, or nothing.
+
+    The trace points go first, read straight from the file into the store; when the file is not clean the write is
+    rolled back, the faults are located on the text path and reported, and a file whose text path finds no fault
+    (ids written with spaces around them, say) is written from the text-staged rows. The trials already stored are
+    then told apart (identical: skipped; different: a conflict, and nothing is written) before the records go in.
+    """
+    created = not path.exists()
+    try:
+        with attached(stage, path), _write_errors(path):
+            if batch.source.traces.csv_path is not None:
+                try:
+                    with transaction(stage):
+                        return _write_records(stage, batch, say, text=False)
+                except UncleanTraces:
+                    pass  # rolled back; the text path locates the faults
+            problems = locate_trace_faults(stage, batch.source, batch.trials, batch.staged)
+            if problems:
+                raise ValidationError(problems)
+            try:
+                with transaction(stage):
+                    return _write_records(stage, batch, say, text=True)
+            except UncleanTraces as exc:  # the text path found no fault where the check found one: say so
+                raise CatalogError(f"{batch.source.traces.label}: cannot be imported ({exc})") from None
+    except BaseException:
+        if created:  # a failed first import leaves no file behind (the store was made for it, and is empty)
+            for leftover in (path, path.with_name(path.name + ".wal")):
+                leftover.unlink(missing_ok=True)
+        raise
+
+
+@contextmanager
+def _write_errors(path: Path) -> Iterator[None]:
+    """DuckDB's refusals during the write, as messages a user can act on (the transaction is rolled back)."""
+    try:
+        yield
+    except duckdb.ConstraintException as exc:
+        raise CatalogError(f"{path}: another import wrote some of these ids meanwhile; nothing was written "
+                           f"({first_line(exc)})") from exc
+    except (duckdb.IOException, duckdb.TransactionException, duckdb.OutOfMemoryException) as exc:
+        # A full disk (the store's or the staging spill folder's), a folder that turned read-only: rolled back.
+        raise CatalogError(f"{path}: cannot be written ({first_line(exc)}); nothing was written") from exc
+
+
+def _write_records(stage, batch: _Batch, say, *, text: bool) -> ImportReport:
+    """The points, then the new catalysts and trials and the import's own record, in the caller's transaction."""
+    source, catalysts, trials = batch.source, batch.catalysts, batch.trials
+    say("reading trace points")
+    n_points, same_trace = write_points(stage, source, batch.staged, batch.overlap, text=text)
+    skipped_trials: list[str] = []
+    if batch.overlap:
+        stored = stage.execute(f"SELECT {', '.join(TRIAL_FIELDS)} FROM store.trials "
+                               "WHERE trial_id IN (SELECT * FROM unnest(?))", [batch.overlap]).df()
+        trials, skipped_trials, conflict = _split_known(
+            trials[TRIAL_FIELDS + ["signal_scale", "signal_shift"]], stored, "trial_id", source.trials.label,
+            same_trace)
+        if conflict:
+            raise ValidationError(conflict)
+    trials = trials.reset_index(drop=True)
+    say(f"writing {len(catalysts)} catalysts, {len(trials)} trials, {n_points} points")
+    stage.register("new_catalysts", catalysts[CATALYST_FIELDS].reset_index(drop=True))
+    stage.register("new_trial_rows", trials[TRIAL_FIELDS].reset_index(drop=True))
+    n_skipped = len(batch.skipped_catalysts) + len(skipped_trials)
+    import_id = stage.execute("SELECT coalesce(max(import_id), 0) + 1 FROM store.imports").fetchone()[0]
+    stage.execute(
+        "INSERT INTO store.imports VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+        [import_id, source.source, ", ".join(source.files), source.content_hash, now(), batch.who,
+         len(catalysts), len(trials), n_points, n_skipped, batch.demo, "\n".join(batch.notes)],
+    )
+    stage.execute(
+        f"INSERT INTO store.catalysts ({', '.join(CATALYST_FIELDS)}, import_id, excluded) "
+        f"SELECT {', '.join(CATALYST_FIELDS)}, ?, false FROM new_catalysts",
+        [import_id],
+    )
+    stage.execute(
+        f"INSERT INTO store.trials ({', '.join(TRIAL_FIELDS)}, import_id, excluded) "
+        f"SELECT {', '.join(TRIAL_FIELDS)}, ?, false FROM new_trial_rows",
+        [import_id],
+    )
+    return ImportReport(int(import_id), len(catalysts), len(trials), n_points, batch.skipped_catalysts,
+                        skipped_trials, batch.notes)
