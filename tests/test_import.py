@@ -99,6 +99,25 @@ def test_reimport_converts_new_trials_of_mixed_units_and_keeps_their_file_order(
     assert [v for _, _, v in stored] == pytest.approx([v for _, _, v in expected], rel=1e-12)
 
 
+def test_reimport_with_a_changed_trace_is_refused_and_keeps_old(campaign, db):
+    """A stored trial whose points differ in the file is a conflict; the points read for the comparison are rolled
+    back with everything else, and an identical re-import adds no second copy of any trace."""
+    store.import_campaign(db, read_source(campaign))
+    before = snapshot(db)
+    write_campaign(campaign, traces=trace_rows().replace("R1,60,", "R1,61,", 1))
+    with pytest.raises(ValidationError) as err:
+        store.import_campaign(db, read_source(campaign))
+    assert "'R1' is already stored with different trace points" in str(err.value)
+    assert "'R2'" not in str(err.value)
+    after = snapshot(db)
+    for name in ("trials", "trace_points", "imports"):
+        pd.testing.assert_frame_equal(before[name], after[name])
+    write_campaign(campaign, trials=TRIALS + "R5,PdC-A,30,gas_volume,mL,12.5,0.8,3,,,,ana,\n",
+                   traces=trace_rows() + "R5,0,1.0\nR5,60,2.0\n")
+    assert store.import_campaign(db, read_source(campaign)).n_points == 2
+    assert len(snapshot(db)["trace_points"]) == len(before["trace_points"]) + 2
+
+
 def test_reimport_with_changed_values_is_refused_and_keeps_old(campaign, db):
     store.import_campaign(db, read_source(campaign))
     before = snapshot(db)
