@@ -22,7 +22,7 @@ from catalog.analysis.settings import Settings
 from catalog.ingest.sources import read_source
 
 ROOT = Path(__file__).resolve().parents[1]
-HEAVY = ("scipy.constants", "scipy.stats", "scipy.optimize", "altair", "openpyxl", "vl_convert", "streamlit", "pint")
+HEAVY = ("scipy.constants", "scipy.special", "scipy.stats", "scipy.optimize", "altair", "openpyxl", "vl_convert", "streamlit", "pint")
 
 
 #: Stands for the package version having been looked up (``catalog.__version__`` is resolved on first use).
@@ -72,8 +72,9 @@ def test_listing_commands_load_no_heavy_library(sample_db, command):
 
 
 def test_a_cold_analysis_loads_no_optimiser_statistics_or_constants_library(tmp_path):
-    # The batch fits run on numpy alone; scipy.optimize stays with the per-trial reference fits, scipy.stats and
-    # scipy.constants are never needed by the package (quantiles come from scipy.special, constants are literals).
+    # The batch fits run on numpy alone; scipy.optimize stays with the per-trial reference fits, scipy.stats,
+    # scipy.special and scipy.constants are never needed by the package (Student-t quantiles and tails come from
+    # catalog.core.stats, constants are literals).
     db = tmp_path / "cold.duckdb"
     store.import_campaign(db, read_source(ROOT / "sample_campaign"))  # a store of its own: nothing cached yet
     assert _loaded_by("analyse", "--db", str(db), "--quiet") == set()

@@ -9,13 +9,14 @@ freedom but the caller gave standard errors, the variances are taken as known an
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
 
 from catalog.core.constants import R, h, k_B
 from catalog.core.linefit import fit_line
-from catalog.core.stats import CONFIDENCE
+from catalog.core.stats import CONFIDENCE, t_tail
 from catalog.errors import CatalogError
 
 __all__ = [
@@ -155,11 +156,8 @@ def _curvature_p(x, y, w, chi2_line, n_temperatures):
     if chi2_quad <= 0.0:
         return 0.0 if chi2_line > 0.0 else np.nan
     f = (chi2_line - chi2_quad) / (chi2_quad / (n - 3))
-    # F survival function from scipy.special (what scipy.stats.f.sf evaluates); deferred, and without scipy.stats,
-    # whose import costs ~0.5 s.
-    from scipy import special
-
-    return float(special.fdtrc(1, n - 3, max(f, 0.0)))
+    # P(F_{1,n-3} > F) is the two-sided Student-t tail at sqrt(F) (see t_tail), evaluated without scipy.
+    return t_tail(math.sqrt(max(f, 0.0)), n - 3)
 
 
 def fit_arrhenius(T, k, k_se=None, scatter: str = "paule-mandel"):
