@@ -73,3 +73,26 @@ def test_fitting_in_several_blocks_gives_the_figures_of_one_block(fresh_db, tmp_
     pd.testing.assert_frame_equal(one.trials, several.trials)
     pd.testing.assert_frame_equal(one.catalysts, several.catalysts)
     pd.testing.assert_frame_equal(one.flags, several.flags)
+
+
+def test_a_run_that_fails_while_its_figures_are_derived_stores_nothing(fresh_db, tmp_path, monkeypatch):
+    # The fits go to the store on a thread while the figures are derived: an error on this side must roll the
+    # write back whole (no fits, no run) and leave the file free for the next command.
+    from catalog import store
+    from catalog.analysis import diagnostics
+
+    db = tmp_path / "copy.duckdb"
+    shutil.copy(fresh_db, db)
+
+    def broken(*args, **kwargs):
+        raise RuntimeError("a diagnostic that breaks")
+
+    monkeypatch.setattr(diagnostics, "evaluate", broken)
+    with pytest.raises(RuntimeError, match="a diagnostic that breaks"):
+        results.get_results(db, Settings())
+    with store.connect(db) as con:  # a write open: the writer's connection is closed
+        assert con.execute("SELECT count(*) FROM trial_fits").fetchall()[0][0] == 0
+        assert con.execute("SELECT count(*) FROM analysis_runs").fetchall()[0][0] == 0
+    monkeypatch.undo()
+    assert results.get_results(db, Settings()).computed
+    assert not results.get_results(db, Settings()).computed

@@ -22,7 +22,7 @@ import numpy as np
 import pandas as pd
 
 from catalog import store
-from catalog.analysis.settings import FIT_VERSION, TRIAL_FIT_COLUMNS, Settings
+from catalog.analysis.settings import FIT_VERSION, Settings
 
 
 @dataclass(frozen=True)
@@ -76,7 +76,8 @@ def get_results(db: str | os.PathLike | None, settings: Settings,
     fits, the plan of point blocks and the points of the first block; it is closed before anything is fitted,
     because DuckDB keeps the memory of a read until its database closes (measured at 10^4 trials: +185 MB of peak
     when held through the fits). A cold run then opens the file once per further block of points and once to store
-    what it computed (each open of the file costs ~20-40 ms).
+    what it computed (each open of the file costs ~20-40 ms), that one on the thread of a
+    :class:`~catalog.store.RunWriter` while the figures and flags are derived from the fits.
     """
     say = progress or (lambda message: None)
     with store.session(db) as con:
@@ -97,16 +98,20 @@ def get_results(db: str | os.PathLike | None, settings: Settings,
         say(f"fitting {len(todo)} trace(s), reusing {len(trials_by_id) - len(todo)} cached fit(s)")
         # A one-slot list, so that only the fitting loop holds the first block's points (and lets them go).
         first = [_read_block(con, blocks, 0, say)]
-    result, flags = _compute(catalysts, trials, _fit_missing(db, trials_by_id, fitted, blocks, first, say), settings,
-                             say)
-    trial_table = _with_codes(result.trials, flags, "trial")
-    catalyst_table = _with_codes(result.catalysts, flags, "catalyst")
-    fit = result.blank
-    summary = {} if fit is None else {k: getattr(fit, k) for k in _BLANK_FIELDS} | {"n_points": fit.n_points}
-    say("storing results")
-    stored = store.save_run(db, key, json.dumps(asdict(settings), sort_keys=True), stamp,
-                            result.trials[list(TRIAL_FIT_COLUMNS)], FIT_VERSION, summary, trial_table, catalyst_table,
-                            flags)
+    fits = _fit_missing(db, trials_by_id, fitted, blocks, first, say)
+    # The store opens, takes the fits and drops stale runs on a thread of its own while the figures and flags are
+    # derived here; the run is committed, whole, once they are handed over. The fits go in the analysed trials'
+    # order, as the trial table holds them.
+    with store.RunWriter(db, key, stamp, fits.loc[trials_by_id.index.intersection(fits.index, sort=False)],
+                         FIT_VERSION) as writer:
+        result, flags = _compute(catalysts, trials, fits, settings, say)
+        trial_table = _with_codes(result.trials, flags, "trial")
+        catalyst_table = _with_codes(result.catalysts, flags, "catalyst")
+        fit = result.blank
+        summary = {} if fit is None else {k: getattr(fit, k) for k in _BLANK_FIELDS} | {"n_points": fit.n_points}
+        say("storing results")
+        stored = writer.finish(json.dumps(asdict(settings), sort_keys=True), summary, trial_table, catalyst_table,
+                               flags)
     if not stored:
         say("the database is read-only: figures computed for this command, not cached")
     # The figures just computed are returned in the layout a cached read has; reading them back from the store

@@ -15,7 +15,7 @@ Callers use the names below, ``from catalog import store; store.import_campaign(
 from importlib import import_module
 
 from catalog.store.backup import BACKUP_MANIFEST, backup, restore
-from catalog.store.cache import load_fits, load_run, run_frames, save_run
+from catalog.store.cache import RunWriter, load_fits, load_run, run_frames, save_run
 from catalog.store.db import DEFAULT_DB, ENV_DB, connect, resolve_path, session
 from catalog.store.queries import (
     PointArrays,
@@ -36,6 +36,7 @@ from catalog.store.queries import (
 
 __all__ = [
     "BACKUP_MANIFEST", "DEFAULT_DB", "ENV_DB", "PURGED", "Change", "ImportReport", "PointArrays", "PointBlock",
+    "RunWriter",
     "backup", "connect", "correct", "data_stamp", "exclude", "history", "import_campaign", "include",
     "list_catalysts", "list_imports", "list_trials", "load_block", "load_campaign", "load_fits", "load_point_arrays",
     "load_points", "load_records", "load_run", "load_trace", "point_blocks", "purge", "purge_import", "resolve_path",
