@@ -50,7 +50,7 @@ class RawTable:
     def from_rows(cls, label: str, headers: Sequence[str], rows: Sequence[Sequence[str]]) -> RawTable:
         """A table from its header and data rows; a short row is padded with empty cells."""
         width = len(headers)
-        padded = [tuple(row) + ("",) * (width - len(row)) for row in rows]
+        padded = [row if len(row) == width else [*row, *[""] * (width - len(row))] for row in rows]
         columns = tuple(zip(*padded, strict=True)) if padded else ((),) * width
         return cls(label, tuple(str(h) for h in headers), columns)
 
@@ -131,12 +131,8 @@ def _read_csv_text(data: bytes, label: str) -> RawTable:
         raise ValidationError([wrong])
     # newline="" keeps a line break inside a quoted cell as written, as the csv module asks.
     reader = csv.reader(io.StringIO(text, newline=""))
-    rows, lines = [], []
     try:
-        for row in reader:
-            if _is_row(row):
-                rows.append(row)
-                lines.append(reader.line_num)
+        rows = [row for row in reader if _is_row(row)]
     except csv.Error as exc:
         raise ValidationError([Problem(label, reader.line_num, None, f"cannot be read as CSV: {exc}")]) from None
     if text.count('"') % 2:
@@ -144,13 +140,19 @@ def _read_csv_text(data: bytes, label: str) -> RawTable:
     if not rows:
         raise ValidationError([Problem(label, None, None, "is empty: expected a header row and data rows")])
     width = len(rows[0])
-    ragged = [Problem(label, line, None, f"has {len(row)} fields where the header has {width}")
-              for row, line in zip(rows, lines, strict=True) if len(row) > width]
-    if ragged:
-        more = len(ragged) - LISTED_RAGGED
-        raise ValidationError(ragged[:LISTED_RAGGED] + (
-            [Problem(label, None, None, f"... and {more} more rows with too many fields")] if more > 0 else []))
+    if any(len(row) > width for row in rows):
+        _refuse_ragged(text, label, width)
     return RawTable.from_rows(label, rows[0], rows[1:])
+
+
+def _refuse_ragged(text: str, label: str, width: int) -> None:
+    """Refuse the rows with more fields than the header, located by line (read again: only a faulty file pays)."""
+    reader = csv.reader(io.StringIO(text, newline=""))
+    ragged = [Problem(label, reader.line_num, None, f"has {len(row)} fields where the header has {width}")
+              for row in reader if len(row) > width]
+    more = len(ragged) - LISTED_RAGGED
+    raise ValidationError(ragged[:LISTED_RAGGED] + (
+        [Problem(label, None, None, f"... and {more} more rows with too many fields")] if more > 0 else []))
 
 
 def _is_row(cells: list[str]) -> bool:

@@ -44,9 +44,6 @@ class Table:
     def __len__(self) -> int:
         return self.n_rows
 
-    def __contains__(self, name: str) -> bool:
-        return name in self.columns
-
     def __getitem__(self, name: str) -> np.ndarray:
         return self.columns[name]
 
@@ -62,16 +59,6 @@ class Table:
     def select(self, names: Iterable[str]) -> dict[str, np.ndarray]:
         """The given columns by name, as DuckDB reads a registered table (a NaN number is read as NULL)."""
         return {name: self.columns[name] for name in names}
-
-    def record(self, row: int) -> dict:
-        """One row as a mapping of column name to value."""
-        return {name: values[row] for name, values in self.columns.items()}
-
-    def to_pandas(self):
-        """The table as a pandas DataFrame (the app's previews); pandas is imported only here."""
-        import pandas as pd  # deferred: the import command never needs pandas
-
-        return pd.DataFrame(self.columns, index=pd.RangeIndex(self.n_rows))
 
 
 def _array(values: Sequence, kind: str) -> np.ndarray:
@@ -167,7 +154,7 @@ def check_column(label: str, raw: Sequence[str], column: Column, at: Found) -> t
     arrays holding ``None`` for an empty cell (see :class:`Table`).
     """
     header = at.header
-    text = np.array([str(v).strip() for v in raw], dtype=object)
+    text = np.array([v.strip() for v in raw], dtype=object)
     empty = text == ""
     problems: list[Problem] = []
     if column.required:
@@ -190,7 +177,7 @@ def check_column(label: str, raw: Sequence[str], column: Column, at: Found) -> t
     # An empty cell is NaN, like the missing value it is; it is told apart from a bad one by ``empty``. Only the
     # filled cells are parsed: parsing is the dearest step, and most optional columns are mostly empty.
     numbers = np.full(len(text), np.nan)
-    numbers[~empty] = [_number(v) for v in text[~empty]]
+    numbers[~empty] = _numbers(text[~empty])
     bad = ~empty & ~np.isfinite(numbers)
     problems += [Problem(label, r, header, f"'{v}' is not a finite number")
                  for r, v in zip(rows(bad), text[bad], strict=True)]
@@ -203,12 +190,23 @@ def check_column(label: str, raw: Sequence[str], column: Column, at: Found) -> t
     return si, problems
 
 
-def _number(text: str) -> float:
-    """A cell's number, NaN when it is none: decimal or exponent notation in ASCII digits, or inf / nan.
+def _numbers(cells: np.ndarray) -> np.ndarray:
+    """The cells' numbers, NaN where a cell holds none: decimal or exponent notation in ASCII digits, or inf / nan.
 
     ``float`` alone would also read digit-group underscores (``1_000``) and other scripts' digits, which a
-    spreadsheet never writes and which could hide a typing slip.
+    spreadsheet never writes and which could hide a typing slip. A column that converts whole (the usual case) is
+    converted in one call; only a column with a bad cell is read cell by cell.
     """
+    joined = "".join(cells)
+    if joined.isascii() and "_" not in joined:
+        try:
+            return cells.astype(float)
+        except ValueError:
+            pass
+    return np.array([_number(v) for v in cells], dtype=float)
+
+
+def _number(text: str) -> float:
     if not text.isascii() or "_" in text:
         return np.nan
     try:
@@ -290,6 +288,8 @@ def _absent(column: Column, n: int) -> np.ndarray:
 
 
 def _duplicates(label: str, ids: np.ndarray, header: str) -> list[Problem]:
+    if len(set(ids)) == len(ids):  # the usual case, told at the cost of one set
+        return []
     where: dict[str, list[int]] = {}
     for i, value in enumerate(ids):
         if value is not None:

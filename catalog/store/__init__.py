@@ -2,8 +2,8 @@
 
 One DuckDB file holds every catalyst, trial and trace point in SI units, with the provenance of each import, the
 history of every correction, and cached analysis results. Values always travel as bound parameters or registered
-DataFrames; no value is ever formatted into SQL text. The schema is built by numbered migrations recorded in
-``schema_migrations``.
+tables (DataFrames, or dicts of numpy columns on the import path); no value is ever formatted into SQL text. The
+schema is built by numbered migrations recorded in ``schema_migrations``.
 
 Modules, by job: :mod:`~catalog.store.db` (path, connection, locks, transactions, migrations),
 :mod:`~catalog.store.schema` (the tables), :mod:`~catalog.store.importer` and :mod:`~catalog.store.staging`
