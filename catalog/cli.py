@@ -7,23 +7,20 @@ traceback for something they can fix. Set ``CATALOG_DEBUG=1`` to see tracebacks 
 from __future__ import annotations
 
 import argparse
+import math
 import os
 import sys
 import textwrap
 from pathlib import Path
 
-import pandas as pd
-
 from catalog import store
-from catalog.analysis import ranking, results
-from catalog.analysis.settings import Settings
-from catalog.core import hazard
 from catalog.errors import CatalogError
 from catalog.ingest.columns import CATALYST_COLUMNS, TRIAL_COLUMNS
 from catalog.ingest.sources import read_source
-from catalog.present import labels, screen, tradeoff
-from catalog.present.numbers import format_interval
 from catalog.units import UnitProblem, celsius, from_si, parse_temperature
+
+# The analysis, the ranking and the screen text are imported by the commands that use them: they bring pandas
+# (~1 s of imports), which the import command and the listing of changes have no use for.
 
 EXIT_USER_ERROR = 2
 EXIT_INTERNAL = 3
@@ -51,6 +48,10 @@ def cmd_import(args: argparse.Namespace) -> int:
 
 
 def cmd_trials(args: argparse.Namespace) -> int:
+    import pandas as pd
+
+    from catalog.present import labels
+
     trials = store.list_trials(args.db)
     if trials.empty:
         print(f"{store.resolve_path(args.db)}: no trials stored yet")
@@ -98,7 +99,7 @@ _SPECS = {"trials": {c.name: c for c in TRIAL_COLUMNS}, "catalysts": {c.name: c 
 
 def _shown(table: str, column: str, text: str | None) -> str:
     """A stored (SI) value in the column's display unit, e.g. '308.35' K as '35.2 degC'."""
-    if text is None or (isinstance(text, float) and pd.isna(text)):
+    if text is None or (isinstance(text, float) and math.isnan(text)):
         return "(empty)"
     spec = _SPECS.get(table, {}).get(column)
     if spec is None or spec.kind != "number" or spec.unit in (None, "dimensionless"):
@@ -134,6 +135,8 @@ def cmd_include(args: argparse.Namespace) -> int:
 
 
 def cmd_history(args: argparse.Namespace) -> int:
+    import pandas as pd
+
     changes = store.history(args.db, args.id)
     if changes.empty:
         print("no changes recorded" + (f" for '{args.id}'" if args.id else ""))
@@ -179,7 +182,9 @@ def cmd_restore(args: argparse.Namespace) -> int:
     return 0
 
 
-def _settings(args: argparse.Namespace) -> Settings:
+def _settings(args: argparse.Namespace):
+    from catalog.analysis.settings import Settings
+
     try:
         kelvin = parse_temperature(args.temperature)
     except UnitProblem as exc:
@@ -192,6 +197,8 @@ def _codes(text: str | None) -> tuple[str, ...]:
 
 
 def _weights(text: str | None) -> dict[str, float] | None:
+    from catalog.analysis import ranking
+
     if not text:
         return None
     weights = {}
@@ -209,7 +216,8 @@ def _weights(text: str | None) -> dict[str, float] | None:
 
 
 def _ranked(args: argparse.Namespace):
-    from catalog.present import exports  # deferred: only rank and report format a shortlist
+    from catalog.analysis import ranking, results
+    from catalog.present import exports, tradeoff  # exports: only rank and report format a shortlist
 
     # Every option is checked before the analysis runs, so a typo costs nothing.
     settings = _settings(args)
@@ -235,7 +243,10 @@ def _ranked(args: argparse.Namespace):
 
 
 def cmd_rank(args: argparse.Namespace) -> int:
-    from catalog.present import exports  # deferred: only rank and report format a shortlist
+    import pandas as pd
+
+    from catalog.core import hazard
+    from catalog.present import exports, labels, screen  # exports: only rank and report format a shortlist
 
     found, ranked = _ranked(args)
     table = exports.shortlist_table(ranked, found, args.top, metric=args.metric, currency=args.currency)
@@ -256,6 +267,10 @@ def cmd_rank(args: argparse.Namespace) -> int:
 
 
 def cmd_analyse(args: argparse.Namespace) -> int:
+    from catalog.analysis import results
+    from catalog.present import labels
+    from catalog.present.numbers import format_interval
+
     found = results.get_results(args.db, _settings(args), progress=None if args.quiet else _progress)
     state = "computed now" if found.computed else "read from the cache (data and settings unchanged)"
     print(f"{len(found.trials)} trials and {len(found.catalysts)} catalysts analysed; results {state}")
@@ -281,6 +296,15 @@ def cmd_report(args: argparse.Namespace) -> int:
                                currency=args.currency, results=found)
     print(f"report written to {path} (self-contained; opens offline)")
     return 0
+
+
+class _MetricNames:
+    """The ranking metrics as a help text shows them, looked up only when a help text is shown."""
+
+    def __str__(self) -> str:
+        from catalog.analysis import ranking
+
+        return ", ".join(ranking.METRICS)
 
 
 class _Version(argparse.Action):
@@ -369,9 +393,9 @@ def build_parser() -> argparse.ArgumentParser:
     ):
         p = add(name, func, help_text)
         analysis_options(p)
-        p.add_argument("--metric", default="tof",
-                       help=f"what to rank by: {', '.join(ranking.METRICS)}, or score (weighted, needs --weights); "
-                            "default tof")
+        metric = p.add_argument("--metric", default="tof",
+                                help="what to rank by: %(metrics)s, or score (weighted, needs --weights); default tof")
+        metric.metrics = _MetricNames()
         p.add_argument("--weights", help="for --metric score: NAME=WEIGHT pairs, e.g. tof=2,enhancement=1")
         p.add_argument("--top", type=int, default=3, help="size of the shortlist for P(top k) (default 3)")
         p.add_argument("--exclude", help="flag codes that exclude a catalyst from the ranking (comma-separated)")
@@ -392,6 +416,8 @@ def main(argv: list[str] | None = None) -> int:
     try:
         return args.func(args)
     except CatalogError as exc:
+        from catalog.present import screen
+
         print(f"error: {screen.condense(str(exc))}", file=sys.stderr)
         return EXIT_USER_ERROR
     except BrokenPipeError:

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import importlib.metadata
 import json
+import shutil
 import subprocess
 import sys
 from pathlib import Path
@@ -64,6 +65,19 @@ def test_the_package_ships_its_type_marker():
 def test_import_loads_no_fitting_plotting_or_spreadsheet_library(sample_db):
     # The sample's headers use the reference spellings, answered from units.KNOWN_CONVERTERS without pint.
     assert sample_db[1] == set()
+
+
+def test_import_loads_neither_pandas_nor_pyarrow(tmp_path):
+    # The campaign is read with the csv module, checked as numpy columns and written through DuckDB: importing
+    # pandas alone costs about as long as DuckDB takes to read the trace file. Checked for a new store and for a
+    # second import of the same trials (other bytes, so not a duplicate), which compares them with the stored ones.
+    db = tmp_path / "lean.duckdb"
+    lean = ("pandas", "pyarrow")
+    assert _loaded_by("import", str(ROOT / "sample_campaign"), "--db", str(db), "--quiet", watched=lean) == set()
+    again = shutil.copytree(ROOT / "sample_campaign", tmp_path / "again")
+    with (again / "catalysts.csv").open("a", encoding="utf-8") as handle:
+        handle.write("\n")
+    assert _loaded_by("import", str(again), "--db", str(db), "--quiet", watched=lean) == set()
 
 
 @pytest.mark.parametrize("command", [["trials"], ["imports"], ["history"]])

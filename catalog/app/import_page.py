@@ -23,7 +23,7 @@ def _already_imported(db: str, source: sources.CampaignSource) -> tuple[str | No
         first = same.iloc[0]
         return (f"These exact files were already imported as import #{int(first['import_id'])} on "
                 f"{first['imported_at']:%Y-%m-%d %H:%M}; there is nothing new to write."), True
-    ids = set(source.trials.frame.get("trial_id", []))
+    ids = set(source.trials.to_pandas().get("trial_id", []))
     stored = ids & set(store.list_trials(db)["trial_id"])
     if stored:
         return (f"{len(stored)} of these {len(ids)} trials are already stored; identical ones will be skipped, "
@@ -33,19 +33,20 @@ def _already_imported(db: str, source: sources.CampaignSource) -> tuple[str | No
 
 def _preview(db: str, source: sources.CampaignSource, who: str) -> None:
     checked_catalysts = validate.check_catalysts(source.catalysts)
-    known = set(checked_catalysts.frame["catalyst_id"].dropna()) | set(common.registry(db)["catalyst_id"])
+    known = ({c for c in checked_catalysts.table["catalyst_id"] if c is not None}
+             | set(common.registry(db)["catalyst_id"]))
     checked_trials = validate.check_trials(source.trials, known)
     _, _, trace_problems, trace_notes = trace_layout(source.traces)
     trace_head, n_points = upload.trace_preview(source)
     st.subheader("What will be written")
     cols = st.columns(3)
-    cols[0].metric("Catalysts", len(source.catalysts.frame))
-    cols[1].metric("Trials", len(source.trials.frame))
+    cols[0].metric("Catalysts", len(source.catalysts))
+    cols[1].metric("Trials", len(source.trials))
     cols[2].metric("Trace points", f"{n_points:,}")
     again, identical = _already_imported(db, source)
     if again:
         st.info(common.text(again), icon=":material/content_copy:")
-    for label, frame in (("catalysts", source.catalysts.frame), ("trials", source.trials.frame),
+    for label, frame in (("catalysts", source.catalysts.to_pandas()), ("trials", source.trials.to_pandas()),
                          ("traces", trace_head)):
         st.markdown(f"First rows of **{label}**")
         st.dataframe(frame.head(5), hide_index=True, width="stretch")

@@ -12,11 +12,14 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
-import pandas as pd
 
 from catalog.core import signals
+
+if TYPE_CHECKING:  # only named in a signature: the import path reads the registry and has no use for pandas
+    import pandas as pd
 
 __all__ = ["MEASUREMENTS", "Condition", "Measurement", "condition_arrays", "to_amount"]
 

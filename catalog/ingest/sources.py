@@ -10,12 +10,12 @@ row 1, the first data row is row 2.
 
 from __future__ import annotations
 
+import csv
 import hashlib
 import io
+from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
-
-import pandas as pd
 
 from catalog.errors import CatalogError, Problem, ValidationError
 from catalog.ingest.archive import check_unpacked_size
@@ -30,24 +30,51 @@ _OTHER_DELIMITERS = {
     "\t": "this is a tab-separated export",
     "|": "this is a pipe-separated export",
 }
+#: Rows with too many fields listed before the rest are only counted.
+LISTED_RAGGED = 50
 
 
 @dataclass(frozen=True)
 class RawTable:
-    """A small table read as text, with the label used in messages (file name, or workbook and sheet)."""
+    """A small table read as text, with the label used in messages (file name, or workbook and sheet).
+
+    ``headers`` are the header cells as written (they may repeat); ``columns`` hold one tuple of cells per header,
+    every cell a str, "" for empty.
+    """
 
     label: str
-    frame: pd.DataFrame  # every cell a str, "" for empty; columns are the header strings as written (may repeat)
+    headers: tuple[str, ...] = ()
+    columns: tuple[tuple[str, ...], ...] = ()
+
+    @classmethod
+    def from_rows(cls, label: str, headers: Sequence[str], rows: Sequence[Sequence[str]]) -> RawTable:
+        """A table from its header and data rows; a short row is padded with empty cells."""
+        width = len(headers)
+        padded = [row if len(row) == width else [*row, *[""] * (width - len(row))] for row in rows]
+        columns = tuple(zip(*padded, strict=True)) if padded else ((),) * width
+        return cls(label, tuple(str(h) for h in headers), columns)
+
+    def __len__(self) -> int:
+        """The number of data rows."""
+        return len(self.columns[0]) if self.columns else 0
+
+    def to_pandas(self):
+        """The table as a pandas DataFrame of text (the app's previews); pandas is imported only here."""
+        import pandas as pd  # deferred: the import command never needs pandas
+
+        frame = pd.DataFrame({i: pd.Series(c, dtype=object) for i, c in enumerate(self.columns)})
+        frame.columns = list(self.headers)
+        return frame
 
 
 @dataclass(frozen=True)
 class TraceSource:
-    """Where the trace points are: a CSV path streamed by the store, or an in-memory frame from a workbook."""
+    """Where the trace points are: a CSV path streamed by the store, or an in-memory text table from a workbook."""
 
     label: str
     headers: tuple[str, ...]
     csv_path: Path | None = None
-    frame: pd.DataFrame | None = None
+    table: RawTable | None = None
 
 
 @dataclass(frozen=True)
@@ -102,29 +129,53 @@ def _read_csv_text(data: bytes, label: str) -> RawTable:
     wrong = delimiter_problem(text.split("\n", 1)[0], label)
     if wrong is not None:
         raise ValidationError([wrong])
+    # newline="" keeps a line break inside a quoted cell as written, as the csv module asks.
+    reader = csv.reader(io.StringIO(text, newline=""))
     try:
-        # header=None keeps the header row as written: pandas would rename a repeated column to 'name.1'. Python
-        # strings (object columns), not pandas' Arrow-backed text: the checks work cell by cell on Python strings, and
-        # building the Arrow columns only to convert them back cost ~15 ms for 10^4 trials.
-        cells = pd.read_csv(io.StringIO(text), header=None, dtype=object, keep_default_na=False, na_filter=False)
-    except pd.errors.EmptyDataError:
-        raise ValidationError([Problem(label, None, None, "is empty: expected a header row and data rows")]) from None
-    except pd.errors.ParserError as exc:
-        raise ValidationError([Problem(label, None, None, f"cannot be read as CSV: {str(exc).strip()}")]) from None
-    return RawTable(label, _with_header(cells))
+        rows = [row for row in reader if _is_row(row)]
+    except csv.Error as exc:
+        raise ValidationError([Problem(label, reader.line_num, None, f"cannot be read as CSV: {exc}")]) from None
+    if text.count('"') % 2:
+        _refuse_open_quote(text, label)
+    if not rows:
+        raise ValidationError([Problem(label, None, None, "is empty: expected a header row and data rows")])
+    width = len(rows[0])
+    if any(len(row) > width for row in rows):
+        _refuse_ragged(text, label, width)
+    return RawTable.from_rows(label, rows[0], rows[1:])
+
+
+def _refuse_ragged(text: str, label: str, width: int) -> None:
+    """Refuse the rows with more fields than the header, located by line (read again: only a faulty file pays)."""
+    reader = csv.reader(io.StringIO(text, newline=""))
+    ragged = [Problem(label, reader.line_num, None, f"has {len(row)} fields where the header has {width}")
+              for row in reader if len(row) > width]
+    more = len(ragged) - LISTED_RAGGED
+    raise ValidationError(ragged[:LISTED_RAGGED] + (
+        [Problem(label, None, None, f"... and {more} more rows with too many fields")] if more > 0 else []))
+
+
+def _is_row(cells: list[str]) -> bool:
+    """False for a line holding nothing but blanks: it is no row at all (not a row of empty cells)."""
+    return len(cells) > 1 or bool(cells and cells[0].strip())
+
+
+def _refuse_open_quote(text: str, label: str) -> None:
+    """Refuse a quoted cell left open at the end of the file, which the lenient reader would take as one long cell.
+
+    Only called when the quotes do not pair up; the strict reader then says where the text stops making sense.
+    """
+    reader = csv.reader(io.StringIO(text, newline=""), strict=True)
+    try:
+        for _ in reader:
+            pass
+    except csv.Error as exc:
+        raise ValidationError([Problem(label, reader.line_num, None,
+                                       f"cannot be read as CSV: {exc} (a quote is not closed)")]) from None
 
 
 def _not_utf8(label: str, row: int | None, exc: UnicodeDecodeError) -> Problem:
     return Problem(label, row, None, f"not UTF-8 text ({exc.reason} at byte {exc.start}); save it as UTF-8 CSV")
-
-
-def _with_header(cells: pd.DataFrame) -> pd.DataFrame:
-    """Turn a header-less text grid into a frame whose columns are its first row."""
-    if cells.empty:
-        return pd.DataFrame()
-    frame = cells.iloc[1:].reset_index(drop=True)
-    frame.columns = [str(c) for c in cells.iloc[0]]
-    return frame
 
 
 def _read_folder(folder: Path) -> CampaignSource:
@@ -164,31 +215,68 @@ def _read_folder(folder: Path) -> CampaignSource:
     )
 
 
+def workbook_sheets(data: bytes) -> dict[str, list[list[str]]]:
+    """Every sheet of an .xlsx workbook as rows of text cells, "" for an empty cell, by sheet name.
+
+    A number is written as Python writes it (an integral number without a decimal point: 30.0 is "30"), a
+    true/false cell as "True"/"False", a date as "2026-03-14 09:30:00"; an error cell (#N/A) is empty. Trailing
+    empty cells and rows are dropped and the rows padded to the widest; in a one-column sheet a blank row is dropped.
+    """
+    import openpyxl  # deferred: ~0.1 s to import, and only a workbook needs it
+    from openpyxl.cell.cell import TYPE_ERROR, TYPE_NUMERIC
+
+    def text(cell) -> str:
+        value = cell.value
+        if value is None or cell.data_type == TYPE_ERROR:
+            return ""
+        if cell.data_type == TYPE_NUMERIC and int(value) == value:
+            return str(int(value))
+        return str(value)
+
+    book = openpyxl.load_workbook(io.BytesIO(data), read_only=True, data_only=True, keep_links=False)
+    try:
+        sheets = {}
+        for sheet in book.worksheets:
+            sheet.reset_dimensions()  # the declared extent of a sheet can be wrong: read what is there
+            rows = []
+            for row in sheet.rows:
+                cells = [text(cell) for cell in row]
+                while cells and cells[-1] == "":
+                    cells.pop()
+                rows.append(cells)
+            while rows and not rows[-1]:
+                rows.pop()
+            width = max((len(r) for r in rows), default=0)
+            sheets[sheet.title] = [r + [""] * (width - len(r)) for r in rows if _is_row(r) or width > 1]
+        return sheets
+    finally:
+        book.close()
+
+
 def _read_workbook(path: Path) -> CampaignSource:
     # openpyxl holds whole sheets in memory, so the real unpacked size is bounded first.
     check_unpacked_size(path)
     data = path.read_bytes()
     try:
-        sheets = pd.read_excel(io.BytesIO(data), sheet_name=None, header=None, dtype=str, keep_default_na=False,
-                               engine="openpyxl")
+        sheets = workbook_sheets(data)
     except Exception as exc:  # noqa: BLE001 - openpyxl raises many types for a damaged workbook
         raise ValidationError([Problem(path.name, None, None, f"cannot be read as an .xlsx workbook: {exc}")]) from None
-    lowered = {str(name).strip().lower(): frame for name, frame in sheets.items()}
+    lowered = {str(name).strip().lower(): rows for name, rows in sheets.items()}
     missing = [Problem(f"{path.name}", None, None, f"sheet '{s}' is missing") for s in SHEETS if s not in lowered]
     if missing:
         raise ValidationError(missing)
 
-    def text(frame: pd.DataFrame) -> pd.DataFrame:
-        # Empty cells come back missing whatever dtype is asked for; the raw tables hold "" for them.
-        return _with_header(frame.astype(object).where(frame.notna(), "").astype(str))
+    def table(sheet: str) -> RawTable:
+        rows = lowered[sheet]
+        label = f"{path.name}, sheet '{sheet}'"
+        return RawTable.from_rows(label, rows[0], rows[1:]) if rows else RawTable(label)
 
-    label = {s: f"{path.name}, sheet '{s}'" for s in SHEETS}
-    traces = text(lowered["traces"])
+    traces = table("traces")
     return CampaignSource(
         source=str(path),
-        catalysts=RawTable(label["catalysts"], text(lowered["catalysts"])),
-        trials=RawTable(label["trials"], text(lowered["trials"])),
-        traces=TraceSource(label["traces"], tuple(traces.columns), frame=traces),
+        catalysts=table("catalysts"),
+        trials=table("trials"),
+        traces=TraceSource(traces.label, traces.headers, table=traces),
         files=(path.name,),
         content_hash=hashlib.sha256(data).hexdigest(),
     )

@@ -180,13 +180,12 @@ def read_trace_upload(upload: Upload) -> PastedTrace:
     if upload.name.lower().endswith((".xlsx", ".xlsm")):
         _check_workbook_bytes(upload.data, upload.name)
         try:
-            sheet = pd.read_excel(io.BytesIO(upload.data), header=None, dtype=str, keep_default_na=False,
-                                  engine="openpyxl")
+            sheet = next(iter(sources.workbook_sheets(upload.data).values()), [])
         except Exception as exc:  # noqa: BLE001 - openpyxl raises many types for a damaged workbook
             raise ValidationError([Problem(upload.name, None, None,
                                            f"cannot be read as an .xlsx workbook: {exc}")]) from None
         # Tab-joined so that a cell holding '1,5' is not mistaken for two cells.
-        text = "\n".join("\t".join(str(v) for v in row[:2]) for row in sheet.itertuples(index=False))
+        text = "\n".join("\t".join(row[:2]) for row in sheet)
         return parse_trace_text(text, upload.name)
     try:
         text = upload.data.decode("utf-8-sig")
@@ -215,7 +214,7 @@ def trace_preview(source: sources.CampaignSource, n: int = 5) -> tuple[pd.DataFr
     """
     traces = source.traces
     if traces.csv_path is None:
-        return traces.frame.head(n), len(traces.frame)
+        return traces.table.to_pandas().head(n), len(traces.table)
     try:
         head = pd.read_csv(traces.csv_path, nrows=n, dtype=str, keep_default_na=False)
     except pd.errors.EmptyDataError:

@@ -2,8 +2,8 @@
 
 One DuckDB file holds every catalyst, trial and trace point in SI units, with the provenance of each import, the
 history of every correction, and cached analysis results. Values always travel as bound parameters or registered
-DataFrames; no value is ever formatted into SQL text. The schema is built by numbered migrations recorded in
-``schema_migrations``.
+tables (DataFrames, or dicts of numpy columns on the import path); no value is ever formatted into SQL text. The
+schema is built by numbered migrations recorded in ``schema_migrations``.
 
 Modules, by job: :mod:`~catalog.store.db` (path, connection, locks, transactions, migrations),
 :mod:`~catalog.store.schema` (the tables), :mod:`~catalog.store.importer` and :mod:`~catalog.store.staging`
@@ -15,24 +15,7 @@ Callers use the names below, ``from catalog import store; store.import_campaign(
 from importlib import import_module
 
 from catalog.store.backup import BACKUP_MANIFEST, backup, restore
-from catalog.store.cache import RunWriter, load_fits, load_run, run_frames, save_run
 from catalog.store.db import DEFAULT_DB, ENV_DB, connect, resolve_path, session
-from catalog.store.queries import (
-    PointArrays,
-    PointBlock,
-    data_stamp,
-    list_catalysts,
-    list_imports,
-    list_trials,
-    load_block,
-    load_campaign,
-    load_point_arrays,
-    load_points,
-    load_records,
-    load_trace,
-    point_blocks,
-    table_counts,
-)
 
 __all__ = [
     "BACKUP_MANIFEST", "DEFAULT_DB", "ENV_DB", "PURGED", "Change", "ImportReport", "PointArrays", "PointBlock",
@@ -44,11 +27,16 @@ __all__ = [
 ]
 
 #: Names loaded on first use, by module: the import and correction paths bring the campaign rules (~35 ms of
-#: imports) that reading commands such as rank and trials never use.
+#: imports) that reading commands such as rank and trials never use; the reads and the cache bring pandas (~1 s),
+#: which the import never uses.
 _LAZY = {name: module for module, names in (
+    ("catalog.store.cache", ("RunWriter", "load_fits", "load_run", "run_frames", "save_run")),
     ("catalog.store.corrections", ("PURGED", "Change", "correct", "exclude", "history", "include", "purge",
                                    "purge_import")),
     ("catalog.store.importer", ("ImportReport", "import_campaign")),
+    ("catalog.store.queries", ("PointArrays", "PointBlock", "data_stamp", "list_catalysts", "list_imports",
+                               "list_trials", "load_block", "load_campaign", "load_point_arrays", "load_points",
+                               "load_records", "load_trace", "point_blocks", "table_counts")),
 ) for name in names}
 
 

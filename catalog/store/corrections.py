@@ -16,7 +16,7 @@ import pandas as pd
 from catalog.errors import CatalogError, Problem, ValidationError
 from catalog.ingest.columns import CATALYST_COLUMNS, TRIAL_COLUMNS
 from catalog.ingest.sources import RawTable
-from catalog.ingest.tables import check_table
+from catalog.ingest.tables import Table, check_table
 from catalog.ingest.validate import catalyst_rules, trial_rules
 from catalog.store.db import connect, now, resolve_path, transaction, user
 from catalog.store.values import as_text, bound, is_missing, same_value
@@ -63,10 +63,11 @@ def _noun(table: str) -> str:
 
 
 def _stored_row(con, table: str, key: str, record_id: str) -> dict:
-    frame = con.execute(f"SELECT * FROM {table} WHERE {key} = ?", [record_id]).df()
-    if frame.empty:
+    found = con.execute(f"SELECT * FROM {table} WHERE {key} = ?", [record_id])
+    row = found.fetchone()
+    if row is None:
         raise CatalogError(f"no {_noun(table)} '{record_id}' in the database")
-    return frame.iloc[0].to_dict()
+    return dict(zip([d[0] for d in found.description], row, strict=True))
 
 
 def _correction_cell(column, value_text: str) -> tuple[str, str]:
@@ -86,21 +87,21 @@ def _parse_cell(column, header: str, cell: str, label: str):
     ValidationError
         The cell breaks a cell rule (not a number, an unknown unit, out of range...).
     """
-    checked = check_table(RawTable(label, pd.DataFrame({header: [cell]}, dtype=str)), (column,))
+    checked = check_table(RawTable.from_rows(label, [header], [[cell]]), (column,))
     if checked.problems:
         raise ValidationError([Problem(label, None, p.column, p.message) for p in checked.problems])
-    return checked.frame.at[0, column.name]
+    return checked.table[column.name][0]
 
 
 def _record_problems(table: str, columns, record: dict, known: set[str],
-                     label: str) -> tuple[list[Problem], pd.DataFrame]:
+                     label: str) -> tuple[list[Problem], Table]:
     """The import's rules across one typed (SI) record, and the record as they leave it (defaults filled).
 
     Nothing is turned back into text or re-parsed.
     """
-    frame = pd.DataFrame([{c.name: record[c.name] for c in columns}])
-    problems = catalyst_rules(frame, label) if table == "catalysts" else trial_rules(frame, known, label)
-    return problems, frame
+    one = Table.from_records([record], {c.name: c.kind for c in columns})
+    problems = catalyst_rules(one, label) if table == "catalysts" else trial_rules(one, known, label)
+    return problems, one
 
 
 def _record_change(con, table: str, record_id: str, column: str, old: str | None, new: str | None,
@@ -173,7 +174,7 @@ def correct(db: str | os.PathLike | None, table: str, record_id: str, column: st
         problems = [Problem(label, None, p.column, p.message) for p in after if str(p) not in before]
         if problems:
             raise ValidationError(problems)
-        value = record.at[0, column]
+        value = record[column][0]
         if same_value(value, stored[column]):
             raise CatalogError(f"{_noun(table)} '{record_id}' already has {column} = {as_text(stored[column])}; "
                                "nothing recorded")

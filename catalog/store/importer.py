@@ -13,10 +13,10 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 import duckdb
-import pandas as pd
 
 from catalog.errors import CatalogError, Problem, ValidationError
 from catalog.ingest.sources import CampaignSource
+from catalog.ingest.tables import Table
 from catalog.ingest.validate import check_catalysts, check_trials
 from catalog.store.db import attached, connect, first_line, now, resolve_path, scratch_database, transaction, user
 from catalog.store.schema import CATALYST_FIELDS, TRIAL_FIELDS
@@ -60,7 +60,7 @@ def import_campaign(
     say = progress or (lambda message: None)
     path = resolve_path(db)
     if not path.exists():
-        earlier, stored_catalysts, stored_ids = None, pd.DataFrame(columns=CATALYST_FIELDS), set()
+        earlier, stored_catalysts, stored_ids = None, {}, set()
     else:
         earlier, stored_catalysts, stored_ids = _stored_state(path, source.content_hash)
     if earlier is not None:
@@ -70,77 +70,89 @@ def import_campaign(
 
     say("checking catalysts and trials")
     catalysts = check_catalysts(source.catalysts)
-    known = set(catalysts.frame["catalyst_id"].dropna()) | set(stored_catalysts["catalyst_id"])
+    known = {c for c in catalysts.table["catalyst_id"] if c is not None} | set(stored_catalysts)
     trials = check_trials(source.trials, known)
     problems = catalysts.problems + trials.problems
     notes = catalysts.notes + trials.notes
 
     new_catalysts, skipped_catalysts, conflict = _split_known(
-        catalysts.frame, stored_catalysts, "catalyst_id", source.catalysts.label
+        catalysts.table, stored_catalysts, CATALYST_FIELDS, "catalyst_id", source.catalysts.label
     )
     problems += conflict
-    overlap = [t for t in trials.frame["trial_id"].dropna() if t in stored_ids]
+    overlap = [t for t in trials.table["trial_id"] if t is not None and t in stored_ids]
 
     with scratch_database() as stage:
-        trace_problems, trace_notes, staged = plan_traces(stage, source, trials.frame)
+        trace_problems, trace_notes, staged = plan_traces(stage, source, trials.table)
         problems += trace_problems
         notes += trace_notes
         if problems:
             # Nothing will be written: list every fault of the trace table too, and the trials that differ from
             # the stored ones in their fields (their points are compared only on a write).
             if staged is not None:
-                problems += locate_trace_faults(stage, source, trials.frame, staged)
+                problems += locate_trace_faults(stage, source, trials.table, staged)
             if overlap:
-                problems += _split_known(trials.frame[TRIAL_FIELDS], _stored_trials(path, overlap), "trial_id",
+                problems += _split_known(trials.table, _stored_trials(path, overlap), TRIAL_FIELDS, "trial_id",
                                          source.trials.label)[2]
             raise ValidationError(problems)
-        return _write(stage, path, _Batch(source, staged, new_catalysts, skipped_catalysts, trials.frame, overlap, demo,
+        return _write(stage, path, _Batch(source, staged, new_catalysts, skipped_catalysts, trials.table, overlap, demo,
                                           who or user(), notes), say)
 
 
-def _stored_state(path: Path, content_hash: str) -> tuple[tuple | None, pd.DataFrame, set[str]]:
-    """An earlier import of identical files (id, time) if any, the stored catalysts and the stored trial ids."""
+def _stored_state(path: Path, content_hash: str) -> tuple[tuple | None, dict[str, tuple], set[str]]:
+    """An earlier import of identical files (id, time) if any, the stored catalysts (id -> row of
+    ``CATALYST_FIELDS``) and the stored trial ids."""
     with connect(path, read_only=True) as con:
         earlier = con.execute(
             "SELECT import_id, imported_at FROM imports WHERE content_hash = ? ORDER BY import_id LIMIT 1",
             [content_hash],
         ).fetchone()
-        catalysts = con.execute(f"SELECT {', '.join(CATALYST_FIELDS)} FROM catalysts").df()
-        trial_ids = set(con.execute("SELECT trial_id FROM trials").df()["trial_id"])
+        catalysts = _rows_by_id(con.execute(f"SELECT {', '.join(CATALYST_FIELDS)} FROM catalysts").fetchall())
+        trial_ids = {r[0] for r in con.execute("SELECT trial_id FROM trials").fetchall()}
     return earlier, catalysts, trial_ids
 
 
-def _stored_trials(path: Path, ids: list[str]) -> pd.DataFrame:
-    """The stored trial records of ``ids``."""
+def _stored_trials(path: Path, ids: list[str]) -> dict[str, tuple]:
+    """The stored trial records of ``ids`` (id -> row of ``TRIAL_FIELDS``)."""
     with connect(path, read_only=True) as con:
-        return con.execute(f"SELECT {', '.join(TRIAL_FIELDS)} FROM trials WHERE trial_id IN (SELECT * FROM unnest(?))",
-                           [ids]).df()
+        return _rows_by_id(con.execute(
+            f"SELECT {', '.join(TRIAL_FIELDS)} FROM trials WHERE trial_id IN (SELECT * FROM unnest(?))", [ids]
+        ).fetchall())
+
+
+def _rows_by_id(rows: list[tuple]) -> dict[str, tuple]:
+    """Stored rows by their id, the first field."""
+    return {row[0]: row for row in rows}
 
 
 def _split_known(
-    incoming: pd.DataFrame, stored: pd.DataFrame, key: str, label: str, same_trace: set[str] | None = None
-) -> tuple[pd.DataFrame, list[str], list[Problem]]:
-    """Separate rows already stored (identical → skipped) from new rows; differing rows are conflicts."""
-    if stored.empty:
+    incoming: Table, stored: dict[str, tuple], fields: list[str], key: str, label: str,
+    same_trace: set[str] | None = None,
+) -> tuple[Table, list[str], list[Problem]]:
+    """Separate rows already stored (identical → skipped) from new rows; differing rows are conflicts.
+
+    ``stored`` maps an id to its stored row of ``fields``.
+    """
+    if not stored:
         return incoming, [], []
-    stored = stored.set_index(key)
-    known = incoming[key].isin(stored.index).to_numpy()
-    skipped, problems, keep = [], [], list(incoming.index[~known])
-    for i, row in incoming[known].iterrows():
-        ident = row[key]
-        old = stored.loc[ident]
-        changed = [c for c in stored.columns if not same_value(row[c], old[c])]
+    skipped, problems, keep = [], [], []
+    for i, ident in enumerate(incoming[key]):
+        old = stored.get(ident) if ident is not None else None
+        if old is None:
+            keep.append(i)
+            continue
+        changed = [c for c, was in zip(fields, old, strict=True)
+                   if c != key and not same_value(incoming[c][i], was)]
         if same_trace is not None and ident not in same_trace:
             changed.append("trace points")
         if changed:
             problems.append(Problem(
-                label, int(i) + 2, key,
+                label, i + 2, key,
                 f"'{ident}' is already stored with different {', '.join(changed)}; it was not overwritten "
                 "(record a correction with 'catalog correct', or give the new record a new id)",
             ))
         else:
             skipped.append(ident)
-    return incoming.loc[sorted(keep)], skipped, problems
+    return incoming.take(keep), skipped, problems
 
 
 @dataclass(frozen=True)
@@ -150,9 +162,9 @@ class _Batch:
 
     source: CampaignSource
     staged: Staged
-    catalysts: pd.DataFrame
+    catalysts: Table
     skipped_catalysts: list[str]
-    trials: pd.DataFrame
+    trials: Table
     overlap: list[str]  # ids of the trials already stored
     demo: bool
     who: str
@@ -211,17 +223,16 @@ def _write_records(stage, batch: _Batch, say, *, text: bool) -> ImportReport:
     n_points, same_trace = write_points(stage, source, batch.staged, batch.overlap, text=text)
     skipped_trials: list[str] = []
     if batch.overlap:
-        stored = stage.execute(f"SELECT {', '.join(TRIAL_FIELDS)} FROM store.trials "
-                               "WHERE trial_id IN (SELECT * FROM unnest(?))", [batch.overlap]).df()
-        trials, skipped_trials, conflict = _split_known(
-            trials[TRIAL_FIELDS + ["signal_scale", "signal_shift"]], stored, "trial_id", source.trials.label,
-            same_trace)
+        stored = _rows_by_id(stage.execute(f"SELECT {', '.join(TRIAL_FIELDS)} FROM store.trials "
+                                           "WHERE trial_id IN (SELECT * FROM unnest(?))", [batch.overlap]).fetchall())
+        trials, skipped_trials, conflict = _split_known(trials, stored, TRIAL_FIELDS, "trial_id", source.trials.label,
+                                                        same_trace)
         if conflict:
             raise ValidationError(conflict)
-    trials = trials.reset_index(drop=True)
     say(f"writing {len(catalysts)} catalysts, {len(trials)} trials, {n_points} points")
-    stage.register("new_catalysts", catalysts[CATALYST_FIELDS].reset_index(drop=True))
-    stage.register("new_trial_rows", trials[TRIAL_FIELDS].reset_index(drop=True))
+    # Registered as numpy columns, which DuckDB scans like a table (a NaN number read as NULL).
+    stage.register("new_catalysts", catalysts.select(CATALYST_FIELDS))
+    stage.register("new_trial_rows", trials.select(TRIAL_FIELDS))
     n_skipped = len(batch.skipped_catalysts) + len(skipped_trials)
     import_id = stage.execute("SELECT coalesce(max(import_id), 0) + 1 FROM store.imports").fetchone()[0]
     stage.execute(

@@ -19,11 +19,12 @@ import dataclasses
 from pathlib import Path
 
 import duckdb
-import pandas as pd
+import numpy as np
 
 from catalog.errors import Problem
 from catalog.ingest.columns import LONGEST_TRACE_S
 from catalog.ingest.sources import CampaignSource
+from catalog.ingest.tables import Table, missing
 from catalog.ingest.validate import trace_layout
 from catalog.store.db import first_line, literal_path
 
@@ -90,7 +91,7 @@ class Staged:
 
 
 def plan_traces(
-    stage: duckdb.DuckDBPyConnection, source: CampaignSource, trials: pd.DataFrame
+    stage: duckdb.DuckDBPyConnection, source: CampaignSource, trials: Table
 ) -> tuple[list[Problem], list[str], Staged | None]:
     """Map the trace headers and prepare the conversion of this campaign's trials to SI in the staging database.
 
@@ -100,10 +101,9 @@ def plan_traces(
     names, time_scale, problems, notes = trace_layout(source.traces)
     if problems:
         return problems, notes, None
-    factors = pd.DataFrame({
-        "trial_id": trials["trial_id"], "scale": trials["signal_scale"], "shift": trials["signal_shift"],
-    }).dropna(subset=["trial_id"])
-    stage.register("factors", factors)
+    has_id = ~missing(trials["trial_id"])
+    stage.register("factors", {name: trials[column][has_id] for name, column in (
+        ("trial_id", "trial_id"), ("scale", "signal_scale"), ("shift", "signal_shift"))})
     # Codes in the order (scale, shift): a few ranges of codes, each with one conversion. A repeated id (already a
     # problem of the trials table) is one member.
     stage.execute("CREATE TYPE trial_key AS ENUM (SELECT trial_id FROM factors GROUP BY trial_id "
@@ -224,7 +224,7 @@ def _same_traces(stage: duckdb.DuckDBPyConnection, start: int, overlap: list[str
     return {r[0] for r in rows}
 
 
-def locate_trace_faults(stage: duckdb.DuckDBPyConnection, source: CampaignSource, trials: pd.DataFrame,
+def locate_trace_faults(stage: duckdb.DuckDBPyConnection, source: CampaignSource, trials: Table,
                         staged: Staged) -> list[Problem]:
     """Read the trace table as text into the staging table ``typed`` and locate every fault by line and column.
 
@@ -295,10 +295,10 @@ def _stage_text(stage: duckdb.DuckDBPyConnection, source: CampaignSource, staged
                 [path, _csv_names(source, names)],
             )
     else:
-        order = [name for header in source.traces.headers for name, h in names.items() if h == header]
-        frame = source.traces.frame.rename(columns={h: n for n, h in names.items()})
-        stage.register("raw_frame", frame[order])
-        stage.execute("CREATE TEMP TABLE raw AS SELECT * FROM raw_frame")
+        table = source.traces.table
+        stage.register("raw_table", {name: np.array(table.columns[table.headers.index(h)], dtype=object)
+                                     for h in table.headers for name, at in names.items() if at == h})
+        stage.execute("CREATE TEMP TABLE raw AS SELECT * FROM raw_table")
     # The SI numbers come from the same expression as the typed path's, so both judge a number alike.
     columns, params = staged.si_columns()
     stage.execute(

@@ -1,20 +1,25 @@
 """Single stored values: equality, canonical text and the Python scalar DuckDB binds.
 
 Shared by the importer (is a re-imported record the same as the stored one?) and the corrections (what the history
-records, and what an UPDATE binds).
+records, and what an UPDATE binds). Values come from checked tables (numpy scalars, NaN for an empty number) or
+from DuckDB rows (Python scalars, None for NULL).
 """
 
 from __future__ import annotations
 
+import math
 from datetime import datetime
 
 import numpy as np
-import pandas as pd
 
 
 def is_missing(value) -> bool:
-    """None, NaN, NaT or pandas' NA; an empty string is a value."""
-    return value is None or (not isinstance(value, str) and bool(pd.isna(value)))
+    """None, NaN or NaT; an empty string is a value."""
+    if value is None:
+        return True
+    if isinstance(value, (float, np.floating)):
+        return math.isnan(value)
+    return isinstance(value, np.datetime64) and bool(np.isnat(value))
 
 
 def same_value(a, b) -> bool:
@@ -24,9 +29,7 @@ def same_value(a, b) -> bool:
         return a_missing and b_missing
     if isinstance(a, (float, np.floating)) or isinstance(b, (float, np.floating)):
         return bool(np.isclose(float(a), float(b), rtol=1e-12, atol=0.0))
-    if isinstance(a, (pd.Timestamp, datetime)) or isinstance(b, (pd.Timestamp, datetime)):
-        return pd.Timestamp(a) == pd.Timestamp(b)
-    return a == b
+    return bool(a == b)
 
 
 def as_text(value) -> str | None:
@@ -37,8 +40,8 @@ def as_text(value) -> str | None:
         return "true" if value else "false"
     if isinstance(value, (float, np.floating)):
         return repr(float(value))
-    if isinstance(value, (pd.Timestamp, datetime)):
-        return pd.Timestamp(value).isoformat()
+    if isinstance(value, datetime):
+        return value.isoformat()
     return str(value)
 
 
@@ -46,8 +49,6 @@ def bound(value):
     """A checked value as DuckDB binds it: a Python scalar, None for missing."""
     if is_missing(value):
         return None
-    if isinstance(value, pd.Timestamp):
-        return value.to_pydatetime()
     if isinstance(value, np.generic):
         return value.item()
     return value
