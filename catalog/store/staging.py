@@ -182,7 +182,7 @@ def _faults(stage: duckdb.DuckDBPyConnection, start: int) -> bool:
     trial, and exact when they come in storage order (checked: consecutive row ids) and each trial's rows are
     contiguous (runs = trials); otherwise the window per trial decides.
     """
-    new = f"(SELECT rowid AS line, trial_id, t, value FROM store.trace_points WHERE rowid >= {int(start)})"
+    new = "(SELECT rowid AS line, trial_id, t, value FROM store.trace_points WHERE rowid >= $start)"
     runs, shuffled, n_trials, faulty = stage.execute(
         f"""
         SELECT count(*) FILTER (starts), count(*) FILTER (shuffled), count(DISTINCT trial_id) FILTER (starts),
@@ -193,12 +193,14 @@ def _faults(stage: duckdb.DuckDBPyConnection, start: int) -> bool:
               FROM (SELECT *, lag(line) OVER () AS previous_line, lag(trial_id) OVER () AS previous_trial,
                            lag(t) OVER () AS previous_time FROM {new}))
         WHERE starts OR shuffled OR faulty
-        """
+        """,
+        {"start": start},
     ).fetchall()[0]
     if faulty:
         return True
     if shuffled or runs != n_trials:
-        if stage.execute(f"SELECT count(*) FROM ({_NOT_INCREASING.format(points=new)})").fetchall()[0][0]:
+        if stage.execute(f"SELECT count(*) FROM ({_NOT_INCREASING.format(points=new)})",
+                         {"start": start}).fetchall()[0][0]:
             return True
     # Every id written is a member of the type (the typed read refuses any other), so every trial has points when
     # as many distinct ids were written as the type has members.
