@@ -67,12 +67,13 @@ def test_import_loads_no_fitting_plotting_or_spreadsheet_library(sample_db):
     assert sample_db[1] == set()
 
 
-def test_import_loads_neither_pandas_nor_pyarrow(tmp_path):
+def test_import_loads_neither_pandas_pyarrow_nor_periodictable(tmp_path):
     # The campaign is read with the csv module, checked as numpy columns and written through DuckDB: importing
-    # pandas alone costs about as long as DuckDB takes to read the trace file. Checked for a new store and for a
-    # second import of the same trials (other bytes, so not a duplicate), which compares them with the stored ones.
+    # pandas alone costs about as long as DuckDB takes to read the trace file; the metals are checked against
+    # catalog.core.elements, not periodictable's mass tables. Checked for a new store and for a second import of the
+    # same trials (other bytes, so not a duplicate), which compares them with the stored ones.
     db = tmp_path / "lean.duckdb"
-    lean = ("pandas", "pyarrow")
+    lean = ("pandas", "pyarrow", "periodictable")
     assert _loaded_by("import", str(ROOT / "sample_campaign"), "--db", str(db), "--quiet", watched=lean) == set()
     again = shutil.copytree(ROOT / "sample_campaign", tmp_path / "again")
     with (again / "catalysts.csv").open("a", encoding="utf-8") as handle:

@@ -7,7 +7,6 @@ Baseline offsets are not removed here: the trace fit estimates them, so these co
 from __future__ import annotations
 
 import numpy as np
-import periodictable
 
 from catalog.core.constants import R
 
@@ -100,6 +99,10 @@ def molar_mass(formula):
     ValueError
         If the formula cannot be parsed or names an unknown element.
     """
+    # Imported here: it builds its mass tables on import (~0.05-0.1 s), which the commands that never need a mass
+    # (import, listing) should not pay for.
+    import periodictable
+
     # A bare element symbol (a catalyst's metal) is looked up directly: periodictable builds its formula grammar on
     # first use (measured ~0.09 s of a cold analysis), and a one-atom formula's mass is that element's mass.
     element = getattr(periodictable.elements, formula, None) if isinstance(formula, str) else None

@@ -13,8 +13,9 @@ from __future__ import annotations
 import csv
 import hashlib
 import io
+import threading
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
 from catalog.errors import CatalogError, Problem, ValidationError
@@ -79,14 +80,23 @@ class TraceSource:
 
 @dataclass(frozen=True)
 class CampaignSource:
-    """Everything read from one campaign before validation, with provenance."""
+    """Everything read from one campaign before validation, with provenance.
+
+    ``digest`` holds the SHA-256 of every byte read, which :attr:`content_hash` waits for: a trace file's hash is
+    worked out on a thread while the tables are checked and the points read (hashlib releases the GIL).
+    """
 
     source: str
     catalysts: RawTable
     trials: RawTable
     traces: TraceSource
     files: tuple[str, ...]
-    content_hash: str
+    digest: str | _Hashing = field(repr=False, compare=False)
+
+    @property
+    def content_hash(self) -> str:
+        """Hex SHA-256 of the campaign's files (names and bytes), the import's identity."""
+        return self.digest if isinstance(self.digest, str) else self.digest.result()
 
 
 def read_source(path: str | Path) -> CampaignSource:
@@ -193,9 +203,7 @@ def _read_folder(folder: Path) -> CampaignSource:
         digest.update(name.encode() + b"\0" + data)
         tables[name] = _read_csv_text(data, name)
     trace_path = folder / TRACES_FILE
-    with trace_path.open("rb") as handle:
-        for block in iter(lambda: handle.read(1 << 20), b""):
-            digest.update(block)
+    hashed = _Hashing(digest, trace_path.open("rb"))  # opened here, so that a refusal to read shows here
     try:
         with trace_path.open("r", encoding="utf-8-sig", newline="") as handle:
             first = handle.readline()
@@ -211,8 +219,36 @@ def _read_folder(folder: Path) -> CampaignSource:
         trials=tables[TRIALS_FILE],
         traces=TraceSource(TRACES_FILE, headers, csv_path=trace_path),
         files=(CATALYSTS_FILE, TRIALS_FILE, TRACES_FILE),
-        content_hash=digest.hexdigest(),
+        digest=hashed,
     )
+
+
+class _Hashing:
+    """The hex digest of ``digest`` updated with the rest of ``handle`` (closed after), worked out on a thread."""
+
+    def __init__(self, digest, handle):
+        self._digest, self._handle = digest, handle
+        self._value: str | None = None
+        self._error: BaseException | None = None
+        # A daemon thread: an interpreter leaving on an error does not wait for the hash of a file it won't import.
+        self._thread = threading.Thread(target=self._work, name="catalog-sha256", daemon=True)
+        self._thread.start()
+
+    def _work(self) -> None:
+        try:
+            with self._handle:
+                for block in iter(lambda: self._handle.read(1 << 20), b""):
+                    self._digest.update(block)
+            self._value = self._digest.hexdigest()
+        except BaseException as exc:  # noqa: BLE001 - raised again to whoever asks for the hash
+            self._error = exc
+
+    def result(self) -> str:
+        """The hex digest, once the thread has read the whole file (its read error, if it had one)."""
+        self._thread.join()
+        if self._error is not None:
+            raise self._error
+        return self._value
 
 
 def workbook_sheets(data: bytes) -> dict[str, list[list[str]]]:
@@ -278,5 +314,5 @@ def _read_workbook(path: Path) -> CampaignSource:
         trials=table("trials"),
         traces=TraceSource(traces.label, traces.headers, table=traces),
         files=(path.name,),
-        content_hash=hashlib.sha256(data).hexdigest(),
+        digest=hashlib.sha256(data).hexdigest(),
     )

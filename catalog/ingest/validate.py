@@ -7,8 +7,8 @@ and column. The store calls these before it writes anything.
 from __future__ import annotations
 
 import numpy as np
-import periodictable
 
+from catalog.core.elements import is_element
 from catalog.core.measurements import MEASUREMENTS
 from catalog.core.signals import water_vapour_pressure
 from catalog.errors import Problem
@@ -34,12 +34,7 @@ def catalyst_rules(table: Table, label: str, header_of: dict[str, str] | None = 
     """The rules across a typed (SI) catalyst table: known element symbols. Also run on a corrected record."""
     header = (header_of or {}).get("metal", "metal")
     return [Problem(label, i + 2, header, f"'{symbol}' is not an element symbol")
-            for i, symbol in enumerate(table["metal"]) if symbol is not None and not _is_element(symbol)]
-
-
-def _is_element(symbol: str) -> bool:
-    element = getattr(periodictable, symbol, None)
-    return isinstance(element, periodictable.core.Element) and element.number > 0
+            for i, symbol in enumerate(table["metal"]) if symbol is not None and not is_element(symbol)]
 
 
 def _headers(raw: RawTable) -> dict[str, str]:
