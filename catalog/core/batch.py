@@ -353,6 +353,12 @@ def fit_traces(trial_index, t, amount, n_max, models=MODELS, chunk_points: int =
     starts = np.concatenate(([0], np.cumsum(counts)))
     width = max(int(counts.max(initial=0)), 1)
     rows = max(1, chunk_points // width)
+    workers = min(workers, -(-m // rows)) if m else 1
+    if workers > 1:
+        # as many chunks as a multiple of the threads, of near-equal size, so no thread fits the last one alone
+        chunks = -(-m // rows)
+        chunks += -chunks % workers
+        rows = -(-m // chunks)
     bounds = [(lo, min(lo + rows, m)) for lo in range(0, m, rows)]
 
     def fit_block(lo_hi):
@@ -367,7 +373,6 @@ def fit_traces(trial_index, t, amount, n_max, models=MODELS, chunk_points: int =
         with np.errstate(all="ignore"):
             return _fit_chunk(T, Yr, W, n_max[lo:hi], models, offset)
 
-    workers = min(workers, len(bounds))
     if workers <= 1:
         parts = [fit_block(b) for b in bounds]
     else:
