@@ -140,6 +140,7 @@ def _compute(catalysts: pd.DataFrame, trials: pd.DataFrame, fits: pd.DataFrame, 
     # Missing inputs give NaN figures by design (empty cells, never made-up numbers); numpy's warnings about
     # them are noise to a user.
     with np.errstate(all="ignore"):
+        say("working out the figures (rates, TOF, Arrhenius, blank)")
         no_points = pd.DataFrame({"trial_id": pd.Series(dtype=object), "t": [], "value": []})
         result = analyse(catalysts, trials, no_points, settings, fits=fits)
         say("running diagnostics")

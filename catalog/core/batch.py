@@ -12,8 +12,9 @@ loop:
   sums per grid point (:func:`_grids`; rescanned from the residuals for near-exact traces, whose RSS the sums'
   rounding would reorder), then Newton on the profile derivative from the vertex of the grid parabola around the
   best point, safeguarded by the two cells around it (:func:`catalog.core.plateau_fit.bracketed_newton`: bisection
-  when a step leaves the bracket, a row stops once its step is below 1e-7 relative, where quadratic convergence
-  leaves ~1e-14). By the envelope theorem and the derivative of the normal equations G^T r = 0 (G = [1, g]),
+  when a step leaves the bracket; a row stops once a Newton step is below 1e-5 relative, after which quadratic
+  convergence leaves ~1e-10, or any step is below 1e-7). By the envelope theorem and the derivative of the normal
+  equations G^T r = 0 (G = [1, g]),
 
   .. math::
       \phi = \frac{dRSS}{d\kappa} = -2\rho\, g'^T r,\qquad
